@@ -1,0 +1,310 @@
+"""Metabolite spin-system definitions: the data model and the reader of ``basis/*.toml``.
+
+Every metabolite is described in one TOML file under ``basis/`` that people can read and check
+against the literature. The layout of such a file::
+
+    name = "Lac"                         # short name used in tables and the fit
+    full_name = "lactate"
+    kind = "metabolite"                  # "metabolite" | "water"
+    source = "Govindaraju V, Young K, Maudsley AA. NMR Biomed 2000;13:129-153"
+
+    [[group]]                            # one group of magnetically equivalent protons
+    label = "2CH"
+    shift_ppm = 4.0974
+    protons = 1
+    source = "Govindaraju 2000, table 2 (from memory)"   # optional, per value
+
+    [[group]]
+    label = "3CH3"
+    shift_ppm = 1.3142
+    protons = 3
+
+    [[coupling]]
+    groups = ["2CH", "3CH3"]
+    j_hz = 6.933
+    source = "..."                       # optional
+
+A metabolite with several non-interacting parts (e.g. the singlet and the coupled part of
+creatine, or the two anomers of glucose with their fractions) may give ``[[group]]`` a
+``fraction`` (default 1): the signal of that group is scaled by it, which is how the 36:64
+α:β glucose mixture is written. Couplings join groups into spin systems; groups joined by no
+coupling are simulated separately (analytically when they are singlets).
+
+Macromolecule and lipid components are Gaussian lines without couplings; they live in
+``basis/macromolecules.toml`` as a list of ``[[component]]`` tables with ``name``, ``shift_ppm``,
+``fwhm_ppm``, ``protons`` (relative weight) and ``source``; a component may have several
+``[[component.peak]]`` entries when it is one moiety with several lines.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+import tomllib
+from collections.abc import Iterable
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from specproc._paths import basis_dir
+from specproc.errors import InvalidInputError
+
+__all__ = [
+    "Coupling",
+    "GaussianPeak",
+    "Macromolecule",
+    "Metabolite",
+    "SpinGroup",
+    "definitions_hash",
+    "list_metabolites",
+    "load_macromolecules",
+    "load_metabolite",
+    "load_metabolites",
+]
+
+MACROMOLECULE_FILE = "macromolecules.toml"
+
+
+@dataclass(frozen=True)
+class SpinGroup:
+    """A group of magnetically equivalent protons.
+
+    Attributes
+    ----------
+    label : str
+        Position label as in the literature table, e.g. ``"2CH"``, ``"3CH2a"``.
+    shift_ppm : float
+        Chemical shift, ppm (DSS = 0).
+    protons : int
+        Number of equivalent protons in the group.
+    fraction : float
+        Scale of this group's signal (e.g. anomer fraction), 1 by default.
+    source : str
+        Literature source of the shift (empty when the metabolite's ``source`` applies).
+    """
+
+    label: str
+    shift_ppm: float
+    protons: int
+    fraction: float = 1.0
+    source: str = ""
+
+
+@dataclass(frozen=True)
+class Coupling:
+    """A scalar coupling J (Hz) between two groups (every proton of one with every of the other)."""
+
+    a: str
+    b: str
+    j_hz: float
+    source: str = ""
+
+
+@dataclass(frozen=True)
+class Metabolite:
+    """A metabolite: spin groups, couplings, and where the values come from."""
+
+    name: str
+    full_name: str
+    groups: tuple[SpinGroup, ...]
+    couplings: tuple[Coupling, ...] = ()
+    kind: str = "metabolite"
+    source: str = ""
+    path: str | None = None
+
+    @property
+    def protons(self) -> float:
+        """Total number of (non-exchangeable) protons, weighted by group fractions."""
+        return float(sum(g.protons * g.fraction for g in self.groups))
+
+    def group(self, label: str) -> SpinGroup:
+        """The group with ``label``."""
+        for g in self.groups:
+            if g.label == label:
+                return g
+        raise KeyError(label)
+
+    def spin_systems(self) -> list[tuple[tuple[SpinGroup, ...], tuple[Coupling, ...]]]:
+        """Split into independent spin systems: groups connected by non-zero couplings."""
+        labels = [g.label for g in self.groups]
+        parent = {label: label for label in labels}
+
+        def find(x: str) -> str:
+            while parent[x] != x:
+                parent[x] = parent[parent[x]]
+                x = parent[x]
+            return x
+
+        for c in self.couplings:
+            if c.j_hz != 0.0:
+                parent[find(c.a)] = find(c.b)
+        systems: dict[str, list[SpinGroup]] = {}
+        for g in self.groups:
+            systems.setdefault(find(g.label), []).append(g)
+        out = []
+        for members in systems.values():
+            names = {g.label for g in members}
+            couplings = tuple(c for c in self.couplings if c.a in names and c.b in names)
+            out.append((tuple(members), couplings))
+        return out
+
+
+@dataclass(frozen=True)
+class GaussianPeak:
+    """One Gaussian line of a macromolecule/lipid component."""
+
+    shift_ppm: float
+    fwhm_ppm: float
+    protons: float
+
+
+@dataclass(frozen=True)
+class Macromolecule:
+    """A macromolecule or lipid component: one or more broad Gaussian lines."""
+
+    name: str
+    peaks: tuple[GaussianPeak, ...]
+    source: str = ""
+    kind: str = "macromolecule"
+
+    @property
+    def protons(self) -> float:
+        """Sum of the relative proton weights of the peaks."""
+        return float(sum(p.protons for p in self.peaks))
+
+
+# ---------------------------------------------------------------------------- reading
+def _require(table: dict[str, Any], key: str, kind: type | tuple[type, ...], path: Path) -> Any:
+    if key not in table:
+        raise InvalidInputError(f"missing key {key!r}", path)
+    value = table[key]
+    if not isinstance(value, kind) or isinstance(value, bool):
+        raise InvalidInputError(f"key {key!r} has the wrong type ({type(value).__name__})", path)
+    return value
+
+
+def load_metabolite(path: str | os.PathLike[str]) -> Metabolite:
+    """Read one metabolite definition file (see the module docstring for the layout)."""
+    path = Path(path)
+    try:
+        table = tomllib.loads(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InvalidInputError(f"cannot read: {exc}", path) from None
+    except tomllib.TOMLDecodeError as exc:
+        raise InvalidInputError(f"not valid TOML: {exc}", path) from None
+    name = _require(table, "name", str, path)
+    groups = []
+    for raw in table.get("group", []):
+        groups.append(
+            SpinGroup(
+                label=_require(raw, "label", str, path),
+                shift_ppm=float(_require(raw, "shift_ppm", (int, float), path)),
+                protons=int(_require(raw, "protons", int, path)),
+                fraction=float(raw.get("fraction", 1.0)),
+                source=str(raw.get("source", "")),
+            )
+        )
+    if not groups:
+        raise InvalidInputError("no [[group]] entries", path)
+    labels = [g.label for g in groups]
+    if len(set(labels)) != len(labels):
+        raise InvalidInputError(f"repeated group labels in {labels}", path)
+    couplings = []
+    for raw in table.get("coupling", []):
+        pair = _require(raw, "groups", list, path)
+        if len(pair) != 2 or any(p not in labels for p in pair) or pair[0] == pair[1]:
+            raise InvalidInputError(f"coupling {pair} must name two different groups", path)
+        couplings.append(
+            Coupling(
+                a=pair[0],
+                b=pair[1],
+                j_hz=float(_require(raw, "j_hz", (int, float), path)),
+                source=str(raw.get("source", "")),
+            )
+        )
+    return Metabolite(
+        name=name,
+        full_name=str(table.get("full_name", name)),
+        groups=tuple(groups),
+        couplings=tuple(couplings),
+        kind=str(table.get("kind", "metabolite")),
+        source=str(table.get("source", "")),
+        path=str(path),
+    )
+
+
+def _definition_files(folder: Path) -> list[Path]:
+    return sorted(p for p in folder.glob("*.toml") if p.name != MACROMOLECULE_FILE)
+
+
+def list_metabolites(folder: str | os.PathLike[str] | None = None) -> list[str]:
+    """Names of all metabolites defined in ``folder`` (default: the bundled ``basis/``)."""
+    return [m.name for m in load_metabolites(folder=folder)]
+
+
+def load_metabolites(
+    names: Iterable[str] | None = None, *, folder: str | os.PathLike[str] | None = None
+) -> list[Metabolite]:
+    """Read the named metabolites (all, when ``names`` is None) from ``folder``.
+
+    Names are matched case-insensitively against each file's ``name``.
+
+    Raises
+    ------
+    InvalidInputError
+        For an unknown name (the message lists the known ones) or a malformed file.
+    """
+    folder = Path(folder) if folder is not None else basis_dir()
+    found = {}
+    for path in _definition_files(folder):
+        met = load_metabolite(path)
+        found[met.name.lower()] = met
+    if names is None:
+        return [found[k] for k in sorted(found)]
+    out = []
+    for name in names:
+        key = str(name).strip().lower()
+        if key not in found:
+            known = ", ".join(sorted(m.name for m in found.values()))
+            raise InvalidInputError(f"unknown metabolite {name!r}; known: {known}")
+        out.append(found[key])
+    return out
+
+
+def load_macromolecules(folder: str | os.PathLike[str] | None = None) -> list[Macromolecule]:
+    """Read the macromolecule/lipid components from ``macromolecules.toml``."""
+    folder = Path(folder) if folder is not None else basis_dir()
+    path = folder / MACROMOLECULE_FILE
+    try:
+        table = tomllib.loads(path.read_text(encoding="utf-8"))
+    except OSError as exc:
+        raise InvalidInputError(f"cannot read: {exc}", path) from None
+    except tomllib.TOMLDecodeError as exc:
+        raise InvalidInputError(f"not valid TOML: {exc}", path) from None
+    out = []
+    for raw in table.get("component", []):
+        name = _require(raw, "name", str, path)
+        peaks_raw = raw.get("peak") or [raw]
+        peaks = tuple(
+            GaussianPeak(
+                shift_ppm=float(_require(p, "shift_ppm", (int, float), path)),
+                fwhm_ppm=float(_require(p, "fwhm_ppm", (int, float), path)),
+                protons=float(_require(p, "protons", (int, float), path)),
+            )
+            for p in peaks_raw
+        )
+        out.append(Macromolecule(name=name, peaks=peaks, source=str(raw.get("source", ""))))
+    return out
+
+
+def definitions_hash(folder: str | os.PathLike[str] | None = None) -> str:
+    """SHA-256 (hex) of the content of every definition file in ``folder``, in name order."""
+    folder = Path(folder) if folder is not None else basis_dir()
+    digest = hashlib.sha256()
+    for path in sorted(folder.glob("*.toml")):
+        digest.update(path.name.encode())
+        digest.update(b"\0")
+        digest.update(path.read_bytes())
+        digest.update(b"\0")
+    return digest.hexdigest()
+
