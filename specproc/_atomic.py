@@ -33,6 +33,10 @@ def atomic_path(path: str | os.PathLike[str]) -> Iterator[Path]:
     )
     os.close(fd)
     tmp = Path(tmp_name)
+    # mkstemp creates owner-only files; give the output the usual permissions of the umask.
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o666 & ~umask)
     try:
         yield tmp
         os.replace(tmp, target)

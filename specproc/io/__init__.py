@@ -1,0 +1,184 @@
+"""Reading and writing MRS data files: :func:`load` and :func:`save`.
+
+One module per format, each with a note on its layout:
+
+=============  ====================================  =======  ======================
+format         module                                read     write
+=============  ====================================  =======  ======================
+nifti-mrs      :mod:`specproc.io.nifti_mrs`          yes      ``.nii``, ``.nii.gz``
+dicom          :mod:`specproc.io.dicom_mrs`          yes      no
+jcamp-dx       :mod:`specproc.io.jcampdx`            yes      no
+npz            :mod:`specproc.io.npz`                yes      ``.npz``
+text           :mod:`specproc.io.text`               yes      ``.txt`` (one FID)
+=============  ====================================  =======  ======================
+
+:func:`load` recognises the format from the file's content (magic bytes), not its name:
+NIfTI-2 ``n+2`` at byte 4 or NIfTI-1 ``n+1`` at byte 344, also inside gzip; ``DICM`` at byte
+128; a zip archive (npz); a first line ``##LABEL=`` (JCAMP-DX); anything else is read as text
+columns. Every problem becomes an :class:`~specproc.errors.InvalidInputError` naming the file.
+
+Examples
+--------
+>>> import numpy as np, tempfile, pathlib
+>>> from specproc import Scan
+>>> from specproc.io import load, save
+>>> fid = np.exp(-np.arange(512) * 1e-2).astype(np.complex64)
+>>> path = pathlib.Path(tempfile.mkdtemp()) / "fid.nii.gz"
+>>> save(Scan(fid, dwell_s=2.5e-4, spectrometer_mhz=123.2), path)
+>>> load(path).format
+'nifti-mrs'
+"""
+
+from __future__ import annotations
+
+import gzip
+import os
+import zlib
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+from specproc.constants import SUPPORTED_NUCLEI
+from specproc.data import Scan
+from specproc.errors import InvalidInputError
+from specproc.io._util import normalise_sequence_name, require_file
+from specproc.io.dicom_mrs import is_dicom_bytes, read_dicom_mrs
+from specproc.io.jcampdx import is_jcampdx_text, read_jcampdx
+from specproc.io.nifti_mrs import is_nifti_bytes, read_nifti_mrs, write_nifti_mrs
+from specproc.io.npz import is_zip_bytes, read_npz, write_npz
+from specproc.io.text import read_text, write_text_fid
+
+__all__ = [
+    "FORMATS",
+    "detect_format",
+    "load",
+    "normalise_sequence_name",
+    "save",
+]
+
+#: Readers by format name.
+FORMATS: dict[str, Callable[..., Scan]] = {
+    "nifti-mrs": read_nifti_mrs,
+    "dicom": read_dicom_mrs,
+    "jcamp-dx": read_jcampdx,
+    "npz": read_npz,
+    "text": read_text,
+}
+
+_WRITERS: dict[str, Callable[[Scan, Path], None]] = {
+    ".nii": write_nifti_mrs,
+    ".nii.gz": write_nifti_mrs,
+    ".npz": write_npz,
+    ".txt": write_text_fid,
+}
+
+
+def detect_format(path: str | os.PathLike[str]) -> str:
+    """Name of the format of a file, from its first bytes.
+
+    Parameters
+    ----------
+    path : str or path-like
+        An existing file.
+
+    Returns
+    -------
+    str
+        One of the keys of :data:`FORMATS`.
+
+    Raises
+    ------
+    InvalidInputError
+        If the file is missing, empty, or gzip data that are not NIfTI.
+    """
+    p = require_file(path)
+    with open(p, "rb") as fh:
+        head = fh.read(4096)
+    if not head:
+        raise InvalidInputError("the file is empty", p)
+    if head[:2] == b"\x1f\x8b":
+        try:
+            with gzip.open(p, "rb") as gz:
+                inner = gz.read(348)
+        except (OSError, EOFError, zlib.error) as exc:
+            raise InvalidInputError(f"truncated or corrupt gzip data: {exc}", p) from None
+        if is_nifti_bytes(inner) is not None:
+            return "nifti-mrs"
+        raise InvalidInputError("gzip-compressed data that are not a NIfTI file", p)
+    if is_nifti_bytes(head) is not None:
+        return "nifti-mrs"
+    if is_dicom_bytes(head):
+        return "dicom"
+    if is_zip_bytes(head):
+        return "npz"
+    if is_jcampdx_text(head):
+        return "jcamp-dx"
+    return "text"
+
+
+def load(path: str | os.PathLike[str], **options: Any) -> Scan:
+    """Read an MRS data file of any supported format into a :class:`~specproc.data.Scan`.
+
+    Parameters
+    ----------
+    path : str or path-like
+        The file; its format is recognised from its content.
+    **options
+        Passed to the format's reader: ``conjugate`` (all but NIfTI-MRS), and for text and
+        JCAMP-DX files ``dwell_s``, ``spectrometer_mhz``, ``nucleus``, ``centre_ppm``,
+        ``te_s``, ``tr_s``, ``sequence``. An option the reader does not know is an error.
+
+    Returns
+    -------
+    Scan
+        Time on the last axis, in the NIfTI-MRS sign convention, ``source`` set to ``path``.
+
+    Raises
+    ------
+    InvalidInputError
+        For every problem with the file (missing, truncated, corrupt, NaN, no spectrometer
+        frequency, zero-length data, bad dimension tags, more than one voxel) and for a
+        nucleus specproc does not process yet (see ``constants.SUPPORTED_NUCLEI``).
+    """
+    p = Path(path)
+    reader = FORMATS[detect_format(p)]
+    try:
+        scan = reader(p, **options)
+    except InvalidInputError as exc:
+        raise exc.with_path(p) from None
+    except TypeError as exc:  # a bad option value of the wrong type
+        raise InvalidInputError(f"bad load option: {exc}", p) from None
+    if scan.nucleus not in SUPPORTED_NUCLEI:
+        raise InvalidInputError(
+            f"nucleus {scan.nucleus} is not supported yet (supported: "
+            f"{', '.join(sorted(SUPPORTED_NUCLEI))})",
+            p,
+        )
+    return scan
+
+
+def _suffix(path: Path) -> str:
+    name = path.name.lower()
+    return ".nii.gz" if name.endswith(".nii.gz") else path.suffix.lower()
+
+
+def save(scan: Scan, path: str | os.PathLike[str]) -> None:
+    """Write a Scan; the format follows the suffix (``.nii``, ``.nii.gz``, ``.npz``, ``.txt``).
+
+    The file is written to a temporary name in the target folder and renamed when complete,
+    so an error never leaves a partial file.
+
+    Raises
+    ------
+    InvalidInputError
+        For an unknown suffix, or a Scan the format cannot hold.
+    """
+    p = Path(path)
+    writer = _WRITERS.get(_suffix(p))
+    if writer is None:
+        raise InvalidInputError(
+            f"cannot write {p.suffix or 'files without a suffix'}; use one of "
+            f"{', '.join(_WRITERS)}",
+            p,
+        )
+    writer(scan, p)

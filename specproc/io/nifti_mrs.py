@@ -1,0 +1,427 @@
+"""NIfTI-MRS read and write (single voxel), through nibabel.
+
+Layout (NIfTI-MRS standard, Clarke et al., Magn Reson Med 2022;88:2358-2370)
+------------------------------------------------------------------------------
+* A NIfTI-2 (preferred; 540-byte header, magic ``n+2\\0`` at byte 4) or NIfTI-1 (348-byte
+  header, magic ``n+1\\0`` at byte 344) single file, ``.nii`` or gzip-compressed ``.nii.gz``.
+* Data type complex64 or complex128. Dimensions: 1-3 spatial (all of size 1 for a single
+  voxel), 4 the complex time domain, 5-7 optional extra axes. Their tags are in the JSON keys
+  ``dim_5``, ``dim_6``, ``dim_7`` (defaults ``DIM_COIL``, ``DIM_DYN``, ``DIM_INDIRECT_0``),
+  with optional ``dim_N_info`` (text) and ``dim_N_header`` (per-index values).
+* Dwell time in ``pixdim[4]``, in the time unit of ``xyzt_units`` (s, ms or µs).
+* ``intent_name`` ``mrs_v0_9`` (the version of the standard written here).
+* Header extension with code 44 whose content is UTF-8 JSON: required
+  ``SpectrometerFrequency`` (MHz) and ``ResonantNucleus``, both arrays; optional
+  ``EchoTime``, ``RepetitionTime``, ``MixingTime`` (s), ``SequenceName``, ``ProtocolName``,
+  ``WaterSuppressed`` and ``ProcessingApplied`` (list of ``{Time, Program, Version, Method,
+  Details}``), which holds the Scan's provenance.
+
+Reading keeps the JSON object verbatim in ``Scan.header``; writing starts from that object
+(when the Scan came from a NIfTI-MRS file), brings the standard keys up to date from the Scan's
+fields and stores the provenance in ``ProcessingApplied``. specproc keeps the chemical shift of
+the receiver centre, when it is not the nucleus default, in the user key
+``specproc_centre_ppm``. The time-domain data are read with ``np.asanyarray(img.dataobj)``
+(``get_fdata`` would drop the imaginary part).
+
+References
+----------
+.. [1] Clarke WT, Bell TK, Emir UE, et al. NIfTI-MRS: a standard data format for magnetic
+   resonance spectroscopy. Magn Reson Med 2022;88:2358-2370.
+.. [2] nibabel, https://nipy.org/nibabel (``Nifti2Image``, ``Nifti1Extension``).
+"""
+
+from __future__ import annotations
+
+import gzip
+import json
+import math
+import os
+import zlib
+from pathlib import Path
+from typing import Any
+
+import nibabel as nib
+import numpy as np
+
+from specproc.data import Scan, is_valid_dim_tag
+from specproc.errors import InvalidInputError
+from specproc.io._util import (
+    check_options,
+    normalise_sequence_name,
+    optional_time_s,
+    reader_boundary,
+    require_file,
+)
+
+__all__ = [
+    "DEFAULT_DIM_TAGS",
+    "EXTENSION_CODE",
+    "INTENT_NAME",
+    "is_nifti_bytes",
+    "read_nifti_mrs",
+    "write_nifti_mrs",
+]
+
+#: Header extension code of NIfTI-MRS (registered with the NIfTI committee).
+EXTENSION_CODE: int = 44
+#: ``intent_name`` written by specproc (NIfTI-MRS version 0.9).
+INTENT_NAME: str = "mrs_v0_9"
+#: Tags of dimensions 5, 6, 7 when the JSON does not give them.
+DEFAULT_DIM_TAGS: dict[int, str] = {5: "DIM_COIL", 6: "DIM_DYN", 7: "DIM_INDIRECT_0"}
+
+_OPTIONS: tuple[str, ...] = ()
+_TIME_UNIT_SCALE = {"sec": 1.0, "msec": 1e-3, "usec": 1e-6, "unknown": 1.0}
+_SPEC_KEYS = (
+    "SpectrometerFrequency",
+    "ResonantNucleus",
+    "EchoTime",
+    "RepetitionTime",
+    "MixingTime",
+    "SequenceName",
+    "ProtocolName",
+    "WaterSuppressed",
+    "ProcessingApplied",
+)
+
+
+def is_nifti_bytes(head: bytes) -> int | None:
+    """NIfTI version (1 or 2) of an uncompressed header start, or ``None``.
+
+    ``head`` must hold at least the first 348 bytes for NIfTI-1 (magic ``n+1\\0`` at 344) or
+    the first 12 bytes for NIfTI-2 (magic ``n+2\\0\\r\\n\\032\\n`` at 4).
+    """
+    if len(head) >= 12 and head[4:12] == b"n+2\x00\r\n\x1a\n":
+        return 2
+    if len(head) >= 348 and head[344:348] in (b"n+1\x00", b"ni1\x00"):
+        return 1
+    return None
+
+
+def _read_raw(path: Path) -> bytes:
+    raw = path.read_bytes()
+    if raw[:2] == b"\x1f\x8b":
+        try:
+            raw = gzip.decompress(raw)
+        except (OSError, EOFError, zlib.error) as exc:
+            raise InvalidInputError(f"truncated or corrupt gzip data: {exc}", path) from None
+    return raw
+
+
+def read_nifti_mrs(path: str | os.PathLike[str], **options: Any) -> Scan:
+    """Read a single-voxel NIfTI-MRS file (``.nii`` or ``.nii.gz``, NIfTI-2 or NIfTI-1).
+
+    Parameters
+    ----------
+    path : str or path-like
+        The file. Its content decides whether it is gzip-compressed, not its suffix.
+    **options
+        None are accepted (NIfTI-MRS files carry all they need).
+
+    Returns
+    -------
+    Scan
+        Data with time on the last axis and the dimension-5..7 axes before it, in order;
+        ``format == "nifti-mrs"``; ``header`` is the JSON extension verbatim.
+
+    Raises
+    ------
+    InvalidInputError
+        For a missing, truncated or corrupt file, no code-44 extension, invalid JSON, missing
+        ``SpectrometerFrequency`` or ``ResonantNucleus``, more than one voxel, real data,
+        unknown or inconsistent dimension tags, NaN or infinite samples, zero-length data.
+    """
+    p = require_file(path)
+    check_options(options, _OPTIONS, "NIfTI-MRS", p)
+    with reader_boundary(p, "NIfTI-MRS"):
+        raw = _read_raw(p)
+        version = is_nifti_bytes(raw[:348])
+        if version is None:
+            raise InvalidInputError("not a NIfTI file (no NIfTI-1 or NIfTI-2 magic)", p)
+        if version == 1 and raw[344:348] == b"ni1\x00":
+            raise InvalidInputError("a NIfTI header/image pair is not supported; use .nii", p)
+        image_class = nib.Nifti2Image if version == 2 else nib.Nifti1Image
+        img = image_class.from_bytes(raw)
+        return _scan_from_image(img, p, n_bytes=len(raw))
+
+
+def _scan_from_image(img: Any, p: Path, *, n_bytes: int) -> Scan:
+    hdr = img.header
+    shape = tuple(int(s) for s in img.shape)
+    if len(shape) < 4:
+        raise InvalidInputError(
+            f"NIfTI-MRS needs at least 4 dimensions (x, y, z, time); found shape {shape}", p
+        )
+    if len(shape) > 7:
+        raise InvalidInputError(f"more than 7 dimensions: shape {shape}", p)
+    if any(s != 1 for s in shape[:3]):
+        raise InvalidInputError(
+            f"more than one voxel (spatial size {shape[0]}x{shape[1]}x{shape[2]}); "
+            "only single-voxel data are supported",
+            p,
+        )
+    if shape[3] == 0 or 0 in shape:
+        raise InvalidInputError("the data hold no time-domain samples", p)
+    meta = _json_extension(hdr, p)
+
+    mhz = _first_number(meta, "SpectrometerFrequency", p)
+    nucleus = _first_text(meta, "ResonantNucleus", p)
+
+    # dwell time from pixdim[4] in the unit of xyzt_units
+    time_unit = hdr.get_xyzt_units()[1]
+    if time_unit not in _TIME_UNIT_SCALE:
+        raise InvalidInputError(
+            f"time unit {time_unit!r} of dimension 4 is not a time (NIfTI-MRS stores the "
+            "time domain)",
+            p,
+        )
+    dwell_s = float(hdr["pixdim"][4]) * _TIME_UNIT_SCALE[time_unit]
+    if not np.isfinite(dwell_s) or dwell_s <= 0:
+        raise InvalidInputError(f"the dwell time pixdim[4] must be positive, got {dwell_s}", p)
+
+    dims, dim_headers = _dimension_tags(meta, shape, p)
+
+    dtype = img.get_data_dtype()
+    if dtype.kind != "c":
+        raise InvalidInputError(
+            f"data type {dtype} is not complex (NIfTI-MRS stores complex64 or complex128)", p
+        )
+    # check the size before reading: nibabel allocates what the header promises
+    needed = int(hdr.get_data_offset()) + math.prod(shape) * dtype.itemsize
+    if needed > n_bytes:
+        raise InvalidInputError(
+            f"truncated: the header promises {needed} bytes, the file holds {n_bytes}", p
+        )
+    data = np.asanyarray(img.dataobj)  # never get_fdata: it drops the imaginary part
+    data = np.moveaxis(data.reshape(shape[3:]), 0, -1)
+    if data.dtype not in (np.complex64, np.complex128):
+        data = data.astype(np.complex128)
+
+    provenance = meta.get("ProcessingApplied", [])
+    if not isinstance(provenance, list) or not all(isinstance(r, dict) for r in provenance):
+        raise InvalidInputError("ProcessingApplied must be a list of objects", p)
+    water = meta.get("WaterSuppressed")
+    if water is not None and not isinstance(water, bool):
+        raise InvalidInputError(f"WaterSuppressed must be true or false, got {water!r}", p)
+    centre = meta.get("specproc_centre_ppm")
+    if centre is not None:
+        centre = _finite(centre, "specproc_centre_ppm", p)
+    seq_text = meta.get("SequenceName")
+    protocol = meta.get("ProtocolName")
+    return Scan(
+        data=data,
+        dwell_s=dwell_s,
+        spectrometer_mhz=mhz,
+        nucleus=nucleus,
+        dims=dims,
+        centre_ppm=centre,
+        te_s=optional_time_s(meta.get("EchoTime"), "EchoTime", p),
+        tr_s=optional_time_s(meta.get("RepetitionTime"), "RepetitionTime", p),
+        tm_s=optional_time_s(meta.get("MixingTime"), "MixingTime", p),
+        sequence=normalise_sequence_name(seq_text),
+        protocol=str(protocol) if protocol is not None else None,
+        water_suppressed=water,
+        dim_headers=dim_headers,
+        header=meta,
+        provenance=tuple(provenance),
+        source=str(p),
+        format="nifti-mrs",
+    )
+
+
+def _json_extension(hdr: Any, p: Path) -> dict[str, Any]:
+    found = [ext for ext in hdr.extensions if int(ext.get_code()) == EXTENSION_CODE]
+    if not found:
+        raise InvalidInputError(
+            f"no NIfTI-MRS header extension (code {EXTENSION_CODE}); not a NIfTI-MRS file", p
+        )
+    if len(found) > 1:
+        raise InvalidInputError(f"{len(found)} NIfTI-MRS header extensions; expected one", p)
+    content = found[0].get_content()
+    if isinstance(content, bytes | bytearray):
+        content = bytes(content).rstrip(b"\x00").decode("utf-8")
+    elif not isinstance(content, str):  # some nibabel versions may return parsed objects
+        content = json.dumps(content)
+    try:
+        meta = json.loads(content.rstrip("\x00 \n\r\t"))
+    except json.JSONDecodeError as exc:
+        raise InvalidInputError(f"the NIfTI-MRS JSON header is not valid JSON: {exc}", p) from None
+    if not isinstance(meta, dict):
+        raise InvalidInputError("the NIfTI-MRS JSON header is not an object", p)
+    return meta
+
+
+def _finite(value: Any, name: str, p: Path) -> float:
+    if isinstance(value, bool):
+        raise InvalidInputError(f"{name} is not a number: {value!r}", p)
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        raise InvalidInputError(f"{name} is not a number: {value!r}", p) from None
+    if not np.isfinite(number):
+        raise InvalidInputError(f"{name} is not finite: {value!r}", p)
+    return number
+
+
+def _first_number(meta: dict[str, Any], key: str, p: Path) -> float:
+    value = meta.get(key)
+    if isinstance(value, list):
+        value = value[0] if value else None
+    if value is None:
+        raise InvalidInputError(f"missing spectrometer frequency ({key} in the JSON header)", p)
+    number = _finite(value, key, p)
+    if number <= 0:
+        raise InvalidInputError(f"{key} must be positive, got {value!r}", p)
+    return number
+
+
+def _first_text(meta: dict[str, Any], key: str, p: Path) -> str:
+    value = meta.get(key)
+    if isinstance(value, list):
+        value = value[0] if value else None
+    if not isinstance(value, str) or not value.strip():
+        raise InvalidInputError(f"missing or invalid {key} in the JSON header: {value!r}", p)
+    return value.strip()
+
+
+def _checked_dim_header(value: Any, n: int, size: int, p: Path) -> Any:
+    """A ``dim_N_header``: per-index lists of length ``size`` or ``{"start", "increment"}``."""
+    if not isinstance(value, dict):
+        raise InvalidInputError(f"dim_{n}_header must be an object", p)
+    for key, item in value.items():
+        if isinstance(item, list) and len(item) != size:
+            raise InvalidInputError(
+                f"inconsistent dimension header: dim_{n}_header {key} has {len(item)} values "
+                f"for {size} indices",
+                p,
+            )
+    return value
+
+
+def _dimension_tags(
+    meta: dict[str, Any], shape: tuple[int, ...], p: Path
+) -> tuple[tuple[str, ...], dict[str, Any]]:
+    ndim = len(shape)
+    sizes = shape[4:]
+    dims: list[str] = []
+    headers: dict[str, Any] = {}
+    for n in range(5, ndim + 1):
+        tag = meta.get(f"dim_{n}", DEFAULT_DIM_TAGS[n])
+        if not isinstance(tag, str) or not is_valid_dim_tag(tag):
+            raise InvalidInputError(f"unknown dimension tag dim_{n} = {tag!r}", p)
+        if tag in dims:
+            raise InvalidInputError(f"dimension tag {tag} is used twice (dim_{n})", p)
+        dims.append(tag)
+        extra = {}
+        if f"dim_{n}_info" in meta:
+            extra["info"] = meta[f"dim_{n}_info"]
+        if f"dim_{n}_header" in meta:
+            extra["header"] = _checked_dim_header(meta[f"dim_{n}_header"], n, sizes[n - 5], p)
+        if extra:
+            headers[tag] = extra
+    for n in range(ndim + 1, 8):
+        for key in (f"dim_{n}", f"dim_{n}_info", f"dim_{n}_header"):
+            if key in meta:
+                raise InvalidInputError(
+                    f"inconsistent dimension tags: {key} is given but the data have only "
+                    f"{ndim} dimensions",
+                    p,
+                )
+    return tuple(dims), headers
+
+
+# ---------------------------------------------------------------------------------- writing
+def _json_header(scan: Scan) -> dict[str, Any]:
+    meta: dict[str, Any] = dict(scan.header) if scan.format == "nifti-mrs" else {}
+    if scan.format not in (None, "nifti-mrs"):
+        meta["specproc_source_format"] = scan.format
+    for n in range(5, 8):  # dimension keys are rewritten from the Scan
+        for key in (f"dim_{n}", f"dim_{n}_info", f"dim_{n}_header"):
+            meta.pop(key, None)
+    meta["SpectrometerFrequency"] = [scan.spectrometer_mhz]
+    meta["ResonantNucleus"] = [scan.nucleus]
+    for key, value in (("EchoTime", scan.te_s), ("RepetitionTime", scan.tr_s),
+                       ("MixingTime", scan.tm_s)):
+        if value is None:
+            meta.pop(key, None)
+        else:
+            meta[key] = value
+    if scan.sequence is not None and normalise_sequence_name(meta.get("SequenceName")) != (
+        scan.sequence
+    ):
+        meta["SequenceName"] = scan.sequence
+    if "SpectralWidth" in meta:  # the dwell time wins; keep the two consistent
+        meta["SpectralWidth"] = scan.spectral_width_hz
+    if scan.protocol is not None:
+        meta["ProtocolName"] = scan.protocol
+    if scan.water_suppressed is not None:
+        meta["WaterSuppressed"] = bool(scan.water_suppressed)
+    if scan.centre_ppm is not None:
+        meta["specproc_centre_ppm"] = scan.centre_ppm
+    else:
+        meta.pop("specproc_centre_ppm", None)
+    for n, tag in enumerate(scan.dims, start=5):
+        meta[f"dim_{n}"] = tag
+        extra = scan.dim_headers.get(tag, {})
+        if "info" in extra:
+            meta[f"dim_{n}_info"] = extra["info"]
+        if "header" in extra:
+            meta[f"dim_{n}_header"] = extra["header"]
+    if scan.provenance or "ProcessingApplied" in meta:
+        meta["ProcessingApplied"] = [dict(r) for r in scan.provenance]
+    return meta
+
+
+def write_nifti_mrs(scan: Scan, path: str | os.PathLike[str]) -> None:
+    """Write a Scan as a NIfTI-2 NIfTI-MRS file (gzip-compressed if ``path`` ends in ``.gz``).
+
+    The file is written to a temporary name and renamed (nothing partial is left). The data
+    are stored bit-exact in their dtype (complex64 or complex128).
+
+    Parameters
+    ----------
+    scan : Scan
+        At most three extra axes (NIfTI-MRS dimensions 5-7).
+    path : str or path-like
+        Target, ``.nii`` or ``.nii.gz``.
+
+    Raises
+    ------
+    InvalidInputError
+        If the Scan has more than three extra axes or its header cannot be stored as JSON.
+    """
+    from specproc._atomic import atomic_path
+
+    target = Path(path)
+    if len(scan.dims) > 3:
+        raise InvalidInputError(
+            f"NIfTI-MRS holds at most 3 extra dimensions; the scan has {len(scan.dims)}", target
+        )
+    meta = _json_header(scan)
+    try:
+        text = json.dumps(_jsonable(meta), allow_nan=False, ensure_ascii=False)
+    except (TypeError, ValueError) as exc:
+        raise InvalidInputError(f"the header cannot be stored as JSON: {exc}", target) from None
+    data = np.moveaxis(np.asarray(scan.data), -1, 0)  # (time, dim5, dim6, dim7)
+    data = np.ascontiguousarray(data).reshape((1, 1, 1, *data.shape))
+    img = nib.Nifti2Image(data, affine=np.eye(4))
+    hdr = img.header
+    hdr.set_data_dtype(data.dtype)
+    hdr.set_xyzt_units("mm", "sec")
+    zooms = [1.0, 1.0, 1.0, scan.dwell_s] + [1.0] * (data.ndim - 4)
+    hdr.set_zooms(zooms)
+    hdr.set_intent("none", name=INTENT_NAME)
+    hdr.extensions.append(nib.nifti1.Nifti1Extension(EXTENSION_CODE, text.encode("utf-8")))
+    with atomic_path(target) as tmp:
+        img.to_filename(str(tmp))
+
+
+def _jsonable(value: Any) -> Any:
+    if isinstance(value, dict):
+        return {str(k): _jsonable(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_jsonable(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return _jsonable(value.tolist())
+    if isinstance(value, np.generic):
+        return value.item()
+    return value
