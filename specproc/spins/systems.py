@@ -39,6 +39,7 @@ Macromolecule and lipid components are Gaussian lines without couplings; they li
 from __future__ import annotations
 
 import hashlib
+import math
 import os
 import tomllib
 from collections.abc import Iterable
@@ -174,33 +175,81 @@ class Macromolecule:
 
 
 # ---------------------------------------------------------------------------- reading
-def _require(table: dict[str, Any], key: str, kind: type | tuple[type, ...], path: Path) -> Any:
+KINDS = ("metabolite", "water")
+
+
+def _require(
+    table: dict[str, Any], key: str, kind: type | tuple[type, ...], path: Path, where: str = ""
+) -> Any:
+    prefix = f"{where}: " if where else ""
     if key not in table:
-        raise InvalidInputError(f"missing key {key!r}", path)
+        raise InvalidInputError(f"{prefix}missing key {key!r}", path)
     value = table[key]
     if not isinstance(value, kind) or isinstance(value, bool):
-        raise InvalidInputError(f"key {key!r} has the wrong type ({type(value).__name__})", path)
+        raise InvalidInputError(
+            f"{prefix}key {key!r} has the wrong type ({type(value).__name__})", path
+        )
     return value
 
 
-def load_metabolite(path: str | os.PathLike[str]) -> Metabolite:
-    """Read one metabolite definition file (see the module docstring for the layout)."""
-    path = Path(path)
+def _number(table: dict[str, Any], key: str, path: Path, where: str) -> float:
+    value = float(_require(table, key, (int, float), path, where))
+    if not math.isfinite(value):
+        raise InvalidInputError(f"{where}: key {key!r} must be a finite number", path)
+    return value
+
+
+def _tables(table: dict[str, Any], key: str, path: Path) -> list[dict[str, Any]]:
+    """The array of tables ``[[key]]`` (empty when absent)."""
+    raw = table.get(key, [])
+    if not isinstance(raw, list) or not all(isinstance(r, dict) for r in raw):
+        raise InvalidInputError(f"{key!r} must be an array of tables ([[{key}]])", path)
+    return raw
+
+
+def _read_toml(path: Path) -> dict[str, Any]:
     try:
-        table = tomllib.loads(path.read_text(encoding="utf-8"))
+        return tomllib.loads(path.read_text(encoding="utf-8"))
     except (OSError, UnicodeDecodeError) as exc:
         raise InvalidInputError(f"cannot read: {exc}", path) from None
     except tomllib.TOMLDecodeError as exc:
         raise InvalidInputError(f"not valid TOML: {exc}", path) from None
+
+
+def load_metabolite(path: str | os.PathLike[str]) -> Metabolite:
+    """Read one metabolite definition file (see the module docstring for the layout).
+
+    Raises
+    ------
+    InvalidInputError
+        Naming the file, when it cannot be read, is not TOML, misses a key, has a value of the
+        wrong type, a non-positive proton count, a fraction outside (0, 1], an unknown
+        ``kind``, repeated group labels, a coupling that does not name two different
+        existing groups or repeats a pair, or coupled groups with different fractions.
+    """
+    path = Path(path)
+    table = _read_toml(path)
     name = _require(table, "name", str, path)
+    if not name.strip():
+        raise InvalidInputError("key 'name' is empty", path)
+    kind = str(table.get("kind", "metabolite"))
+    if kind not in KINDS:
+        raise InvalidInputError(f"kind {kind!r} is not one of {', '.join(KINDS)}", path)
     groups = []
-    for raw in table.get("group", []):
+    for i, raw in enumerate(_tables(table, "group", path), start=1):
+        where = f"group {i}"
+        protons = _require(raw, "protons", int, path, where)
+        if protons < 1:
+            raise InvalidInputError(f"{where}: 'protons' must be at least 1", path)
+        fraction = _number(raw, "fraction", path, where) if "fraction" in raw else 1.0
+        if not 0.0 < fraction <= 1.0:
+            raise InvalidInputError(f"{where}: 'fraction' must be in (0, 1]", path)
         groups.append(
             SpinGroup(
-                label=_require(raw, "label", str, path),
-                shift_ppm=float(_require(raw, "shift_ppm", (int, float), path)),
-                protons=int(_require(raw, "protons", int, path)),
-                fraction=float(raw.get("fraction", 1.0)),
+                label=_require(raw, "label", str, path, where),
+                shift_ppm=_number(raw, "shift_ppm", path, where),
+                protons=int(protons),
+                fraction=fraction,
                 source=str(raw.get("source", "")),
             )
         )
@@ -210,27 +259,42 @@ def load_metabolite(path: str | os.PathLike[str]) -> Metabolite:
     if len(set(labels)) != len(labels):
         raise InvalidInputError(f"repeated group labels in {labels}", path)
     couplings = []
-    for raw in table.get("coupling", []):
-        pair = _require(raw, "groups", list, path)
+    pairs: set[frozenset[str]] = set()
+    for i, raw in enumerate(_tables(table, "coupling", path), start=1):
+        where = f"coupling {i}"
+        pair = _require(raw, "groups", list, path, where)
         if len(pair) != 2 or any(p not in labels for p in pair) or pair[0] == pair[1]:
-            raise InvalidInputError(f"coupling {pair} must name two different groups", path)
+            raise InvalidInputError(
+                f"{where}: {pair} must name two different groups of {labels}", path
+            )
+        key = frozenset(pair)
+        if key in pairs:
+            raise InvalidInputError(f"{where}: the pair {pair} is coupled twice", path)
+        pairs.add(key)
         couplings.append(
             Coupling(
                 a=pair[0],
                 b=pair[1],
-                j_hz=float(_require(raw, "j_hz", (int, float), path)),
+                j_hz=_number(raw, "j_hz", path, where),
                 source=str(raw.get("source", "")),
             )
         )
-    return Metabolite(
+    met = Metabolite(
         name=name,
         full_name=str(table.get("full_name", name)),
         groups=tuple(groups),
         couplings=tuple(couplings),
-        kind=str(table.get("kind", "metabolite")),
+        kind=kind,
         source=str(table.get("source", "")),
         path=str(path),
     )
+    for members, _ in met.spin_systems():
+        if len({g.fraction for g in members}) > 1:
+            labels_ = [g.label for g in members]
+            raise InvalidInputError(
+                f"coupled groups {labels_} must have the same fraction (one molecule)", path
+            )
+    return met
 
 
 def _definition_files(folder: Path) -> list[Path]:
@@ -255,10 +319,15 @@ def load_metabolites(
         For an unknown name (the message lists the known ones) or a malformed file.
     """
     folder = Path(folder) if folder is not None else basis_dir()
-    found = {}
+    found: dict[str, Metabolite] = {}
     for path in _definition_files(folder):
         met = load_metabolite(path)
-        found[met.name.lower()] = met
+        key = met.name.lower()
+        if key in found:
+            raise InvalidInputError(
+                f"metabolite name {met.name!r} is also defined in {found[key].path}", path
+            )
+        found[key] = met
     if names is None:
         return [found[k] for k in sorted(found)]
     out = []
@@ -272,28 +341,37 @@ def load_metabolites(
 
 
 def load_macromolecules(folder: str | os.PathLike[str] | None = None) -> list[Macromolecule]:
-    """Read the macromolecule/lipid components from ``macromolecules.toml``."""
+    """Read the macromolecule/lipid components from ``macromolecules.toml``.
+
+    Raises
+    ------
+    InvalidInputError
+        Naming the file, when it is missing or malformed, a name repeats, or a line has a
+        non-positive width or weight.
+    """
     folder = Path(folder) if folder is not None else basis_dir()
     path = folder / MACROMOLECULE_FILE
-    try:
-        table = tomllib.loads(path.read_text(encoding="utf-8"))
-    except OSError as exc:
-        raise InvalidInputError(f"cannot read: {exc}", path) from None
-    except tomllib.TOMLDecodeError as exc:
-        raise InvalidInputError(f"not valid TOML: {exc}", path) from None
+    table = _read_toml(path)
     out = []
-    for raw in table.get("component", []):
-        name = _require(raw, "name", str, path)
-        peaks_raw = raw.get("peak") or [raw]
-        peaks = tuple(
-            GaussianPeak(
-                shift_ppm=float(_require(p, "shift_ppm", (int, float), path)),
-                fwhm_ppm=float(_require(p, "fwhm_ppm", (int, float), path)),
-                protons=float(_require(p, "protons", (int, float), path)),
+    names: set[str] = set()
+    for i, raw in enumerate(_tables(table, "component", path), start=1):
+        name = _require(raw, "name", str, path, f"component {i}")
+        if name in names:
+            raise InvalidInputError(f"component name {name!r} is repeated", path)
+        names.add(name)
+        peaks_raw = _tables(raw, "peak", path) or [raw]
+        peaks = []
+        for j, p in enumerate(peaks_raw, start=1):
+            where = f"component {name!r} peak {j}"
+            peak = GaussianPeak(
+                shift_ppm=_number(p, "shift_ppm", path, where),
+                fwhm_ppm=_number(p, "fwhm_ppm", path, where),
+                protons=_number(p, "protons", path, where),
             )
-            for p in peaks_raw
-        )
-        out.append(Macromolecule(name=name, peaks=peaks, source=str(raw.get("source", ""))))
+            if peak.fwhm_ppm <= 0 or peak.protons <= 0:
+                raise InvalidInputError(f"{where}: 'fwhm_ppm' and 'protons' must be > 0", path)
+            peaks.append(peak)
+        out.append(Macromolecule(name=name, peaks=tuple(peaks), source=str(raw.get("source", ""))))
     return out
 
 
@@ -307,4 +385,3 @@ def definitions_hash(folder: str | os.PathLike[str] | None = None) -> str:
         digest.update(path.read_bytes())
         digest.update(b"\0")
     return digest.hexdigest()
-
