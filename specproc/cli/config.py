@@ -1,0 +1,38 @@
+"""``specproc config``: print and check configuration files.
+
+``specproc config show`` prints the bundled defaults (TOML with comments), to be copied, edited
+and passed back with ``--config FILE``; ``specproc config check FILE`` merges a user file over
+the defaults and reports the first problem (unknown key, wrong type) as a one-line error.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+
+from specproc.config import default_config_text, load_config
+
+__all__ = ["COMMANDS"]
+
+
+@click.group("config")
+def config_group() -> None:
+    """Show the default configuration or check a configuration file."""
+
+
+@config_group.command("show")
+def show() -> None:
+    """Print the default configuration (TOML with comments)."""
+    click.echo(default_config_text(), nl=False)
+
+
+@config_group.command("check")
+@click.argument("file", type=click.Path(dir_okay=False, path_type=Path))
+def check(file: Path) -> None:
+    """Check FILE against the defaults (unknown keys and wrong types are errors)."""
+    load_config(file)
+    click.echo(f"{file}: configuration is valid")
+
+
+COMMANDS = [config_group]

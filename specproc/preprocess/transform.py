@@ -1,0 +1,181 @@
+"""Fourier transform, frequency axes and unit conversion in the NIfTI-MRS convention.
+
+Convention (Clarke et al., Magn Reson Med 2022;88:2358-2370, and :mod:`specproc.data`): with
+``S = fftshift(fft(fid))`` and ``f = fftshift(fftfreq(n, dwell_s))`` the chemical shift of a
+spectral point is ``ppm = centre_ppm - f / spectrometer_mhz``; high ppm lies at low indices (on the
+left of a plot). A resonance at shift δ has the time dependence
+``exp(-2πi (δ - centre_ppm) · spectrometer_mhz · t)``.
+
+Throughout ``specproc.preprocess`` a *frequency* in Hz means a frequency on the FFT axis ``f``;
+a positive frequency shift therefore moves peaks to lower ppm.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from nmrglue.process import proc_base
+
+from specproc.errors import InvalidInputError
+
+__all__ = [
+    "freq_axis_hz",
+    "hz_to_ppm",
+    "measure_fwhm_hz",
+    "ppm_axis",
+    "ppm_to_hz",
+    "ppm_window_mask",
+    "shift_frequency",
+    "to_fid",
+    "to_spectrum",
+]
+
+
+def freq_axis_hz(n_points: int, dwell_s: float) -> np.ndarray:
+    """Frequency of each spectral point relative to the receiver centre, Hz (fftshift order).
+
+    Parameters
+    ----------
+    n_points : int
+        Number of spectral points.
+    dwell_s : float
+        Sampling interval of the FID, s.
+
+    Returns
+    -------
+    freq_hz : (n_points,) ndarray
+        Increasing frequencies ``fftshift(fftfreq(n_points, dwell_s))``.
+    """
+    return np.fft.fftshift(np.fft.fftfreq(int(n_points), float(dwell_s)))
+
+
+def hz_to_ppm(
+    freq_hz: float | np.ndarray, *, spectrometer_mhz: float, centre_ppm: float
+) -> float | np.ndarray:
+    """Shift of an FFT-axis frequency: ``ppm = centre_ppm - freq_hz / spectrometer_mhz``."""
+    return centre_ppm - np.asarray(freq_hz, dtype=float) / spectrometer_mhz
+
+
+def ppm_to_hz(
+    shift_ppm: float | np.ndarray, *, spectrometer_mhz: float, centre_ppm: float
+) -> float | np.ndarray:
+    """FFT-axis frequency of a chemical shift: ``freq_hz = (centre_ppm - shift_ppm) · MHz``."""
+    return (centre_ppm - np.asarray(shift_ppm, dtype=float)) * spectrometer_mhz
+
+
+def ppm_axis(
+    n_points: int, *, dwell_s: float, spectrometer_mhz: float, centre_ppm: float
+) -> np.ndarray:
+    """Chemical shift of each spectral point (fftshift order, decreasing), ppm."""
+    return hz_to_ppm(
+        freq_axis_hz(n_points, dwell_s), spectrometer_mhz=spectrometer_mhz, centre_ppm=centre_ppm
+    )
+
+
+def ppm_window_mask(ppm: np.ndarray, window_ppm: tuple[float, float]) -> np.ndarray:
+    """Boolean mask of the points of a ppm axis inside ``window_ppm`` (either order, inclusive).
+
+    Raises
+    ------
+    InvalidInputError
+        If the window holds no point of the axis.
+    """
+    low, high = sorted(float(v) for v in window_ppm)
+    mask = (ppm >= low) & (ppm <= high)
+    if not np.any(mask):
+        raise InvalidInputError(
+            f"the window {low:g}-{high:g} ppm lies outside the spectrum "
+            f"({float(np.min(ppm)):.2f} to {float(np.max(ppm)):.2f} ppm)"
+        )
+    return mask
+
+
+def to_spectrum(fid: np.ndarray, *, n_points: int | None = None) -> np.ndarray:
+    """Spectrum of an FID in the NIfTI-MRS convention, ``fftshift(fft(fid))`` on the last axis.
+
+    Uses :func:`nmrglue.process.proc_base.fft` (same definition) after optional zero-filling.
+
+    Parameters
+    ----------
+    fid : (..., n) complex ndarray
+        Time-domain data, time on the last axis.
+    n_points : int, optional
+        Zero-fill to this many points first (must be at least ``n``).
+
+    Returns
+    -------
+    spectrum : (..., n_points) complex ndarray
+    """
+    data = np.asarray(fid)
+    if not np.iscomplexobj(data):  # nmrglue keeps the input dtype: a real input would lose imag
+        data = data.astype(np.complex128)
+    if n_points is not None and int(n_points) != data.shape[-1]:
+        if int(n_points) < data.shape[-1]:
+            raise InvalidInputError(
+                f"cannot zero-fill {data.shape[-1]} points to fewer ({int(n_points)})"
+            )
+        data = proc_base.zf_size(data, int(n_points))
+    return proc_base.fft(data)
+
+
+def to_fid(spectrum: np.ndarray) -> np.ndarray:
+    """Inverse of :func:`to_spectrum` (without zero-filling): ``ifft(ifftshift(spectrum))``."""
+    data = np.asarray(spectrum)
+    return np.fft.ifft(np.fft.ifftshift(data, axes=-1), axis=-1)
+
+
+def shift_frequency(fid: np.ndarray, *, shift_hz: float | np.ndarray, dwell_s: float) -> np.ndarray:
+    """Move every resonance by ``shift_hz`` on the FFT frequency axis: ``fid · exp(2πi Δf t)``.
+
+    A positive shift moves peaks to lower ppm by ``shift_hz / spectrometer_mhz``.
+
+    Parameters
+    ----------
+    fid : (..., n) complex ndarray
+    shift_hz : float or (...,) ndarray
+        Shift per trace, Hz (broadcast over the leading axes).
+    dwell_s : float
+        Sampling interval, s.
+    """
+    data = np.asarray(fid)
+    t = np.arange(data.shape[-1]) * float(dwell_s)
+    shift = np.asarray(shift_hz, dtype=float)[..., None]
+    return data * np.exp(2j * np.pi * shift * t)
+
+
+def measure_fwhm_hz(spectrum: np.ndarray, freq_hz: np.ndarray) -> float:
+    """Full width at half maximum of the tallest peak of a real (absorption) spectrum, Hz.
+
+    The half-maximum crossings on both sides of the maximum are found by linear interpolation
+    between neighbouring points (zero-fill the FID first for fine sampling).
+
+    Parameters
+    ----------
+    spectrum : (n,) ndarray
+        Spectrum; its real part is used.
+    freq_hz : (n,) ndarray
+        Increasing frequency axis of the spectrum, Hz.
+
+    Returns
+    -------
+    fwhm_hz : float
+        ``nan`` when a half-maximum crossing lies outside the spectrum.
+    """
+    y = np.real(np.asarray(spectrum))
+    f = np.asarray(freq_hz, dtype=float)
+    k = int(np.argmax(y))
+    half = y[k] / 2.0
+    if half <= 0:
+        return float("nan")
+    left = k
+    while left > 0 and y[left] > half:
+        left -= 1
+    right = k
+    while right < y.size - 1 and y[right] > half:
+        right += 1
+    if y[left] > half or y[right] > half:
+        return float("nan")
+    f_left = f[left] + (half - y[left]) * (f[left + 1] - f[left]) / (y[left + 1] - y[left])
+    f_right = f[right - 1] + (half - y[right - 1]) * (f[right] - f[right - 1]) / (
+        y[right] - y[right - 1]
+    )
+    return float(f_right - f_left)
