@@ -1,0 +1,367 @@
+"""Tables of a scan report: tidy results rows, the methods (reporting checklist) table, TOML.
+
+Rendering only: everything here reads results computed elsewhere (fit, quantification, QC) and
+returns plain rows (lists of dicts of str/float) or text.
+
+The methods table follows the sections of the minimum reporting standards for in vivo MRS
+(Lin et al., NMR Biomed 2021;34:e4484): hardware, acquisition, analysis and data quality; the
+wording of the rows is our own.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from typing import Any
+
+import numpy as np
+
+__all__ = [
+    "RESULT_COLUMNS",
+    "config_to_toml",
+    "format_number",
+    "methods_rows",
+    "processing_rows",
+    "qc_rows",
+    "results_rows",
+    "rows_to_tsv",
+]
+
+#: Columns of ``results.tsv`` (one row per scan × fitted member or combined sum).
+RESULT_COLUMNS: tuple[str, ...] = (
+    "scan",
+    "metabolite",
+    "kind",
+    "amplitude",
+    "crlb_sd",
+    "crlb_percent",
+    "ratio_tcr",
+    "ratio_tcr_sd",
+    "conc_molar_mm",
+    "conc_molar_sd_mm",
+    "conc_molal_mmol_kg",
+    "conc_molal_sd_mmol_kg",
+    "fit_flag",
+    "snr",
+    "naa_fwhm_hz",
+    "qc_passed",
+    "qc_flags",
+)
+
+
+def format_number(value: Any, digits: int = 4) -> str:
+    """Format a value for a table: ``g`` format for floats, ``"nan"`` for non-finite ones."""
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, float | np.floating):
+        v = float(value)
+        return "nan" if not math.isfinite(v) else f"{v:.{digits}g}"
+    if value is None:
+        return ""
+    return str(value)
+
+
+def results_rows(fit: Any, quant: Any, qc: Any, *, scan_label: str) -> list[dict[str, Any]]:
+    """Tidy results: the fit table with ratio SDs, concentrations and scan-level QC columns.
+
+    Parameters
+    ----------
+    fit : FitResult
+        From :func:`specproc.fit.fit_spectrum`.
+    quant : Quantification
+        From :func:`specproc.quantify.quantify` (names: fitted members then sums).
+    qc : QCReport
+        From :func:`specproc.qc.qc_from_scan`.
+    scan_label : str
+        Value of the ``scan`` column.
+
+    Returns
+    -------
+    list of dict
+        Keys :data:`RESULT_COLUMNS`; concentrations NaN without water referencing.
+    """
+    from specproc.fit import results_table
+
+    nan = float("nan")
+    flags = "; ".join(f.message for f in qc.flags)
+    out = []
+    for row in results_table(fit):
+        name = row["metabolite"]
+
+        def get(table: Mapping[str, float] | None, key: str = name) -> float:
+            return nan if table is None else float(table.get(key, nan))
+
+        out.append({
+            "scan": scan_label,
+            "metabolite": name,
+            "kind": row["kind"],
+            "amplitude": float(row["amplitude"]),
+            "crlb_sd": float(row["crlb_sd"]),
+            "crlb_percent": float(row["crlb_percent"]),
+            "ratio_tcr": get(quant.ratios),
+            "ratio_tcr_sd": get(quant.ratio_sd),
+            "conc_molar_mm": get(quant.conc_molar_mm),
+            "conc_molar_sd_mm": get(quant.conc_molar_sd_mm),
+            "conc_molal_mmol_kg": get(quant.conc_molal_mmol_kg),
+            "conc_molal_sd_mmol_kg": get(quant.conc_molal_sd_mmol_kg),
+            "fit_flag": row["flag"],
+            "snr": float(qc.snr),
+            "naa_fwhm_hz": float(qc.naa_fwhm_hz),
+            "qc_passed": bool(qc.passed),
+            "qc_flags": flags,
+        })
+    return out
+
+
+def _tsv_cell(value: Any) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, float | np.floating):
+        v = float(value)
+        return "nan" if not math.isfinite(v) else f"{v:.6g}"
+    text = "" if value is None else str(value)
+    return text.replace("\t", " ").replace("\r", " ").replace("\n", " ")
+
+
+def rows_to_tsv(rows: Sequence[Mapping[str, Any]], columns: Sequence[str] = RESULT_COLUMNS) -> str:
+    """Tab-separated text of ``rows`` with a header line (tabs/newlines in cells → spaces)."""
+    lines = ["\t".join(columns)]
+    lines += ["\t".join(_tsv_cell(row.get(c)) for c in columns) for row in rows]
+    return "\n".join(lines) + "\n"
+
+
+def qc_rows(qc: Any) -> list[dict[str, str]]:
+    """QC metrics with their definitions and the flag of each (for the report)."""
+    from specproc.qc import QC_DEFINITIONS
+
+    flagged = {f.name: f for f in qc.flags}
+    th = qc.thresholds
+
+    def row(label: str, value: Any, unit: str, metric: str, definition: str,
+            limit: str = "") -> dict[str, str]:
+        flag = flagged.get(metric)
+        return {
+            "metric": label,
+            "value": format_number(value),
+            "unit": unit,
+            "threshold": limit,
+            "flag": flag.message if flag else "",
+            "definition": definition,
+        }
+
+    def limit(rule: str, value: float | None) -> str:
+        return "off" if value is None else f"{rule} {value:g} (common practice)"
+
+    rows = [
+        row("SNR (NAA)", qc.snr, "", "snr", QC_DEFINITIONS["snr"], limit("flag if <", th.snr_min)),
+        row("noise SD", qc.noise_sd, "a.u.", "noise_sd", QC_DEFINITIONS["noise_sd"]),
+        row("NAA FWHM", qc.naa_fwhm_hz, "Hz", "naa_fwhm_hz", QC_DEFINITIONS["fwhm"]),
+        row("NAA FWHM", qc.naa_fwhm_ppm, "ppm", "naa_fwhm_ppm", QC_DEFINITIONS["fwhm"],
+            limit("flag if >", th.naa_fwhm_ppm_max)),
+        row("water FWHM", qc.water_fwhm_hz, "Hz", "water_fwhm_hz", QC_DEFINITIONS["fwhm"]),
+        row("water FWHM", qc.water_fwhm_ppm, "ppm", "water_fwhm_ppm", QC_DEFINITIONS["fwhm"],
+            limit("flag if >", th.water_fwhm_ppm_max)),
+        row("fit residual / noise", qc.residual_ratio, "", "residual_ratio",
+            QC_DEFINITIONS["residual_ratio"], limit("flag if >", th.residual_ratio_max)),
+        row("transients", qc.n_transients, "", "n_transients", "number acquired"),
+        row("rejected transients", qc.n_rejected, "", "rejected_fraction",
+            QC_DEFINITIONS["n_rejected"], limit("flag if fraction >", th.rejected_fraction_max)),
+        row("frequency drift range", qc.drift_range_hz, "Hz", "drift_range_hz",
+            QC_DEFINITIONS["drift_range_hz"], limit("flag if >", th.drift_range_hz_max)),
+    ]
+    for name, value in qc.crlb_percent.items():
+        rows.append(row(f"CRLB {name}", value, "%", f"crlb:{name}",
+                        "Cramér-Rao SD / amplitude", limit("flag if >", th.crlb_percent_max)))
+    return rows
+
+
+def _ms(value: float | None) -> str:
+    return "not given" if value is None else f"{value * 1e3:g} ms"
+
+
+def methods_rows(
+    *,
+    scan: Any,
+    water: Any,
+    pre: Any,
+    fit: Any,
+    quant: Any,
+    qc: Any,
+    basis_info: Mapping[str, Any],
+    versions: Mapping[str, str],
+    water_info: Mapping[str, Any] | None,
+    tissue: Mapping[str, float] | None,
+) -> list[dict[str, str]]:
+    """The methods table: one row per checklist item, grouped by section.
+
+    Sections after Lin et al. 2021 (MRSinMRS): 1 hardware, 2 acquisition, 3 analysis,
+    4 data quality. Returned strings are plain text (the HTML renderer escapes them).
+    """
+    header = dict(scan.header)
+    rows: list[dict[str, str]] = []
+
+    def add(section: str, item: str, value: Any) -> None:
+        rows.append({"section": section, "item": item, "value": format_number(value)})
+
+    hw = "1 Hardware"
+    add(hw, "field strength", f"{scan.field_t:.3g} T ({scan.spectrometer_mhz:.4f} MHz, "
+        f"{scan.nucleus})")
+    add(hw, "receive coil elements",
+        scan.extra_shape.get("DIM_COIL", "1 (or combined before export)"))
+    if "ManufacturersModelName" in header or "Manufacturer" in header:
+        add(hw, "scanner", f"{header.get('Manufacturer', '')} "
+            f"{header.get('ManufacturersModelName', '')}".strip())
+    acq = "2 Acquisition"
+    add(acq, "sequence", scan.sequence or "not given")
+    add(acq, "protocol (from the file header)", scan.protocol or "not given")
+    add(acq, "TE / TR", f"{_ms(scan.te_s)} / {_ms(scan.tr_s)}")
+    if scan.tm_s is not None:
+        add(acq, "TM", _ms(scan.tm_s))
+    if "VoxelSize_mm" in header:
+        add(acq, "voxel size", " x ".join(format_number(float(v)) for v in
+                                         header["VoxelSize_mm"]) + " mm")
+    if "VoxelLocation" in header:
+        add(acq, "voxel location", header["VoxelLocation"])
+    n_tr = qc.n_transients
+    add(acq, "transients", "not known" if n_tr is None else n_tr)
+    add(acq, "spectral width / points", f"{scan.spectral_width_hz:g} Hz / {scan.n_points}")
+    add(acq, "water suppression", {True: "yes", False: "no", None: "not given"}[
+        scan.water_suppressed])
+    add(acq, "shimming", header.get("Shimming", "not recorded in the file"))
+    add(acq, "triggering / motion correction",
+        header.get("MotionCorrection", "not recorded in the file (transients screened for "
+                   "outliers in the analysis)"))
+    add(acq, "water reference", "none" if water is None else (
+        f"unsuppressed, TE {_ms(water.te_s)}, TR {_ms(water.tr_s)}, "
+        f"{water.extra_shape.get('DIM_DYN', 1)} transient(s)"))
+    ana = "3 Analysis"
+    add(ana, "software", f"specproc {versions.get('specproc', '')} (numpy "
+        f"{versions.get('numpy', '')}, scipy {versions.get('scipy', '')})")
+    steps = [r.get("Method", "") for r in pre.scan.provenance]
+    add(ana, "processing steps", "; ".join(s for s in steps if s))
+    add(ana, "basis", f"{basis_info.get('origin', '')}; {basis_info.get('sequence', '')} "
+        f"{', '.join(f'{k} {v * 1e3:g} ms' for k, v in basis_info.get('timings_s', {}).items())}"
+        f"; {len(basis_info.get('names', []))} members")
+    add(ana, "fitting model", (
+        f"linear combination over {fit.fit_range_ppm[0]:g}-{fit.fit_range_ppm[1]:g} ppm, "
+        "shared Lorentzian damping per group, shared Gaussian broadening, zero/first-order "
+        "phase, penalised cubic B-spline baseline (knots every "
+        f"{fit.settings.get('baseline_knot_ppm', '')} ppm); variable projection; "
+        "Cramér-Rao lower bounds"))
+    add(ana, "output measure", quant.statement)
+    if quant.water_referenced:
+        consts = quant.constants
+        add(ana, "tissue fractions (GM/WM/CSF)", "/".join(
+            format_number(float(tissue[t]), 3) for t in ("gm", "wm", "csf")) if tissue else "")
+        add(ana, "tissue water content (GM/WM/CSF)", "/".join(
+            format_number(float(consts["water_content"][t]), 3) for t in ("gm", "wm", "csf")))
+        add(ana, "quantification reference", quant.formula.get("references", ""))
+        add(ana, "relaxation times", f"{consts.get('relaxation_file', '')} at "
+            f"{format_number(consts.get('field_t'))} T")
+        if water_info:
+            add(ana, "water signal", water_info.get("method", ""))
+    dq = "4 Data quality"
+    add(dq, "SNR", f"{format_number(qc.snr)} (NAA height / noise SD)")
+    add(dq, "linewidth", f"NAA {format_number(qc.naa_fwhm_hz)} Hz; water "
+        f"{format_number(qc.water_fwhm_hz)} Hz (FWHM, absorption)")
+    add(dq, "fit quality", f"residual SD / noise SD {format_number(qc.residual_ratio)}; "
+        f"reduced chi-square {format_number(fit.reduced_chi_square)}")
+    add(dq, "exclusion criteria (flags)", "; ".join(f.message for f in qc.flags) or "none raised")
+    add(dq, "transients rejected", "not known" if qc.n_rejected is None else qc.n_rejected)
+    add(dq, "sample spectrum", "the fit figure of this report (data, fit, residual)")
+    return rows
+
+
+def processing_rows(provenance: Sequence[Mapping[str, Any]]) -> list[dict[str, str]]:
+    """One row per processing record (method and a short rendering of its details)."""
+    rows = []
+    for k, record in enumerate(provenance, start=1):
+        details = record.get("Details", {}) or {}
+        parts = []
+        for key, value in details.items():
+            if isinstance(value, list | tuple) and len(value) > 6:
+                continue  # per-transient arrays are in fit.json
+            if isinstance(value, Mapping):
+                continue
+            parts.append(f"{key}={format_number(value)}")
+        rows.append({
+            "step": str(k),
+            "method": str(record.get("Method", "")),
+            "details": ", ".join(parts),
+            "program": f"{record.get('Program', '')} {record.get('Version', '')}".strip(),
+        })
+    return rows
+
+
+# ============================================================================ TOML
+def _toml_key(key: str) -> str:
+    if key and all(c.isalnum() or c in "-_" for c in key):
+        return key
+    return _toml_string(key)
+
+
+def _toml_string(text: str) -> str:
+    out = ['"']
+    for ch in text:
+        if ch == '"':
+            out.append('\\"')
+        elif ch == "\\":
+            out.append("\\\\")
+        elif ch == "\n":
+            out.append("\\n")
+        elif ch == "\t":
+            out.append("\\t")
+        elif ord(ch) < 0x20 or ord(ch) == 0x7F:
+            out.append(f"\\u{ord(ch):04x}")
+        else:
+            out.append(ch)
+    out.append('"')
+    return "".join(out)
+
+
+def _toml_value(value: Any) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, int | np.integer):
+        return str(int(value))
+    if isinstance(value, float | np.floating):
+        v = float(value)
+        if math.isnan(v):
+            return "nan"
+        if math.isinf(v):
+            return "inf" if v > 0 else "-inf"
+        return repr(v)
+    if isinstance(value, str):
+        return _toml_string(value)
+    if isinstance(value, Mapping):
+        return "{ " + ", ".join(f"{_toml_key(str(k))} = {_toml_value(v)}"
+                                for k, v in value.items()) + " }"
+    if isinstance(value, list | tuple):
+        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
+    raise TypeError(f"cannot write {type(value).__name__} as TOML")
+
+
+def config_to_toml(config: Mapping[str, Any], *, header: str | None = None) -> str:
+    """Write a nested configuration dict as TOML text (readable back with :mod:`tomllib`).
+
+    Tables become ``[a.b]`` sections; lists of tables are written inline.
+    """
+    lines: list[str] = []
+    if header:
+        lines += [f"# {line}" for line in header.splitlines()]
+        lines.append("")
+
+    def emit(table: Mapping[str, Any], prefix: tuple[str, ...]) -> None:
+        scalars = {k: v for k, v in table.items() if not isinstance(v, Mapping)}
+        tables = {k: v for k, v in table.items() if isinstance(v, Mapping)}
+        if scalars and prefix:
+            lines.append("[" + ".".join(_toml_key(p) for p in prefix) + "]")
+        for key, value in scalars.items():
+            lines.append(f"{_toml_key(str(key))} = {_toml_value(value)}")
+        if scalars:
+            lines.append("")
+        for key, value in tables.items():
+            emit(value, (*prefix, str(key)))
+
+    emit(config, ())
+    return "\n".join(lines).rstrip() + "\n"
