@@ -20,7 +20,9 @@ from specproc.errors import SpecprocError
 __all__ = ["main"]
 
 #: Modules of this package that each define ``COMMANDS``: a list of click commands to register.
-_COMMAND_MODULES: tuple[str, ...] = ("info", "basis", "config", "preprocess", "fit", "demo")
+_COMMAND_MODULES: tuple[str, ...] = (
+    "info", "basis", "config", "preprocess", "fit", "demo", "batch", "phantom",
+)
 
 
 class _Group(click.Group):

@@ -1,0 +1,537 @@
+"""Running a cohort: protocols and shared bases, executors, resume, then the cohort summary.
+
+Flow of :func:`run_batch`:
+
+1. For each entry (streamed, one scan in memory at a time) the parent reads the scan's header
+   to find its **protocol** (field, sequence, TE, TM, dwell time, number of points, receiver
+   centre, basis members) and hashes the inputs (SHA-256 of the scan and water files, of the
+   effective configuration and of the entry's manifest values, the protocol's basis key and
+   the specproc version). A scan that cannot be read fails here, with its reason.
+2. A scan whose ``done.json`` records the same hashes is skipped (resume).
+3. The basis of each distinct protocol is simulated once, in the parent, and saved to
+   ``OUTDIR/basis/<key>.npz`` (the simulation cache of :mod:`specproc.basis` is used too); the
+   workers load it by path.
+4. The remaining scans go to an executor: in-process (``workers=1``), local worker processes
+   (:class:`concurrent.futures.ProcessPoolExecutor`, ``spawn`` start method), or a Dask
+   distributed cluster (``scheduler="tcp://host:port"``; the workers must see the same file
+   system). At most a few tasks per worker are in flight, so memory stays flat.
+5. The cohort tables are rebuilt from the per-scan folders (:mod:`specproc.batch.cohort`).
+"""
+
+from __future__ import annotations
+
+import contextlib
+import hashlib
+import json
+import os
+from collections.abc import Callable, Iterator, Mapping, Sequence
+from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from specproc.batch.manifest import ScanEntry
+from specproc.batch.task import (
+    done_matches,
+    failed_summary,
+    failure_reason,
+    file_sha256,
+    run_task,
+    write_outcome,
+)
+from specproc.errors import InvalidInputError
+
+__all__ = [
+    "BatchSummary",
+    "config_sha256",
+    "protocol_of",
+    "run_batch",
+]
+
+#: Environment variables that keep numerical libraries single-threaded in worker processes
+#: (one process per core is the parallelism; nested threads only compete for the cores).
+_THREAD_VARS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
+                "VECLIB_MAXIMUM_THREADS", "NUMEXPR_NUM_THREADS")
+
+
+@dataclass
+class BatchSummary:
+    """What a batch did.
+
+    Attributes
+    ----------
+    n_scans, n_processed, n_skipped, n_failed, n_flagged : int
+        Counts (``n_skipped``: up to date from an earlier run).
+    failures : list of (str, str)
+        (key, reason) of the failed scans, sorted by key.
+    out_dir : Path
+        The output folder.
+    tables : dict of str to Path
+        ``cohort.tsv``, ``cohort_qc.tsv``, ``cohort.html``.
+    """
+
+    n_scans: int = 0
+    n_processed: int = 0
+    n_skipped: int = 0
+    n_failed: int = 0
+    n_flagged: int = 0
+    failures: list[tuple[str, str]] = field(default_factory=list)
+    out_dir: Path = Path()
+    tables: dict[str, Path] = field(default_factory=dict)
+
+
+def _sha256_json(value: Any) -> str:
+    text = json.dumps(value, sort_keys=True, allow_nan=False, default=str)
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def config_sha256(config: Mapping[str, Any]) -> str:
+    """SHA-256 of the canonical JSON of an effective configuration."""
+    return _sha256_json(config)
+
+
+def protocol_of(scan: Any, *, metabolites: Sequence[str] | None,
+                macromolecules: bool | None) -> dict[str, Any]:
+    """The simulation inputs of a scan's basis (what :func:`specproc.basis.basis_for_scan` uses).
+
+    Raises
+    ------
+    InvalidInputError
+        When the scan does not give its sequence, or TE (TM for STEAM).
+    """
+    from specproc.constants import field_from_larmor
+    from specproc.spins.sequences import normalise_sequence_name
+
+    where = scan.source
+    if not scan.sequence:
+        raise InvalidInputError(
+            "the scan does not say which sequence acquired it (add a sequence column to the "
+            "manifest)", where)
+    sequence = normalise_sequence_name(scan.sequence)
+    protocol: dict[str, Any] = {
+        "sequence": sequence,
+        "field_t": round(field_from_larmor(scan.spectrometer_mhz, scan.nucleus), 4),
+        "dwell_s": scan.dwell_s,
+        "n_points": scan.n_points,
+        "centre_ppm": scan.reference_ppm,
+        "metabolites": None if metabolites is None else list(metabolites),
+    }
+    if sequence != "pulse-acquire":
+        if scan.te_s is None:
+            raise InvalidInputError(
+                "the scan does not give its echo time (add a te_ms column to the manifest)",
+                where)
+        protocol["te_s"] = scan.te_s
+    if sequence == "steam":
+        if scan.tm_s is None:
+            raise InvalidInputError(
+                "the scan does not give its STEAM mixing time (add a tm_ms column)", where)
+        protocol["tm_s"] = scan.tm_s
+    if macromolecules is None:
+        from specproc.workflow import SHORT_TE_S
+
+        macromolecules = scan.te_s is not None and scan.te_s < SHORT_TE_S
+    protocol["macromolecules"] = bool(macromolecules)
+    return protocol
+
+
+def _protocol_key(protocol: Mapping[str, Any]) -> str:
+    from specproc import __version__
+    from specproc.basis import ENGINE_VERSION
+    from specproc.spins.systems import definitions_hash
+
+    return _sha256_json({"protocol": dict(protocol), "version": __version__,
+                         "engine": ENGINE_VERSION, "definitions": definitions_hash()})[:20]
+
+
+def _simulate(protocol: Mapping[str, Any], path: Path) -> None:
+    """Simulate (or take from the cache) the basis of a protocol and save it to ``path``."""
+    from specproc.basis import simulate_basis
+
+    args = {k: v for k, v in protocol.items() if v is not None}
+    basis = simulate_basis(**args)
+    basis.save(path)
+
+
+@dataclass(frozen=True)
+class _Prepared:
+    entry: ScanEntry
+    inputs: dict[str, Any]
+    protocol: dict[str, Any] | None
+    reason: str = ""
+
+
+def _prepare(entries: Sequence[ScanEntry], *, config_hash: str,
+             metabolites: Sequence[str] | None, macromolecules: bool | None
+             ) -> Iterator[_Prepared]:
+    """Read each scan's header (one at a time) and hash its inputs."""
+    from specproc import __version__
+    from specproc.batch.task import apply_overrides
+    from specproc.io import load
+
+    for entry in entries:
+        inputs: dict[str, Any] = {
+            "scan_sha256": None, "water_sha256": None, "config_sha256": config_hash,
+            "entry_sha256": _sha256_json(entry.describe()), "basis": None,
+            "specproc_version": __version__,
+        }
+        try:
+            inputs["scan_sha256"] = file_sha256(entry.scan_path)
+            inputs["water_sha256"] = file_sha256(entry.water_path)
+            scan = apply_overrides(load(entry.scan_path), entry.overrides)
+            protocol = protocol_of(scan, metabolites=metabolites, macromolecules=macromolecules)
+            del scan
+        except Exception as exc:  # recorded as a failed scan
+            yield _Prepared(entry, inputs, None, failure_reason(exc))
+            continue
+        inputs["basis"] = _protocol_key(protocol)
+        yield _Prepared(entry, inputs, protocol)
+
+
+# ============================================================================ executors
+class _Executor:
+    """submit(fn, arg) -> future; wait_any(futures) -> (done, pending); result(f); close()."""
+
+    def submit(self, fn: Callable[[Any], Any], arg: Any) -> Any:
+        raise NotImplementedError
+
+    def wait_any(self, futures: set[Any]) -> tuple[set[Any], set[Any]]:
+        raise NotImplementedError
+
+    def result(self, future: Any) -> Any:
+        return future.result()
+
+    def close(self) -> None:
+        """Release the workers."""
+
+    capacity = 1
+
+
+class _InlineFuture:
+    def __init__(self, value: Any) -> None:
+        self.value = value
+
+    def result(self) -> Any:
+        return self.value
+
+
+class _InProcess(_Executor):
+    capacity = 1
+
+    def submit(self, fn: Callable[[Any], Any], arg: Any) -> Any:
+        return _InlineFuture(fn(arg))
+
+    def wait_any(self, futures: set[Any]) -> tuple[set[Any], set[Any]]:
+        return set(futures), set()
+
+
+class _LocalPool(_Executor):
+    def __init__(self, workers: int) -> None:
+        import multiprocessing
+
+        self.capacity = 2 * workers
+        self.pool = ProcessPoolExecutor(
+            max_workers=workers, mp_context=multiprocessing.get_context("spawn")
+        )
+
+    def submit(self, fn: Callable[[Any], Any], arg: Any) -> Any:
+        return self.pool.submit(fn, arg)
+
+    def wait_any(self, futures: set[Any]) -> tuple[set[Any], set[Any]]:
+        done, pending = wait(futures, return_when=FIRST_COMPLETED)
+        return set(done), set(pending)
+
+    def close(self) -> None:
+        self.pool.shutdown(wait=True, cancel_futures=True)
+
+
+class _Dask(_Executor):
+    def __init__(self, address: str) -> None:
+        try:
+            from distributed import Client
+        except ImportError:
+            raise InvalidInputError(
+                "--scheduler needs dask.distributed: pip install 'specproc[cohort]'"
+            ) from None
+        try:
+            self.client = Client(address, timeout="20s", set_as_default=False)
+        except (OSError, TimeoutError) as exc:
+            raise InvalidInputError(
+                f"cannot connect to the Dask scheduler at {address}: {exc}"
+            ) from None
+        from distributed import as_completed
+
+        n = sum(self.client.nthreads().values()) or 1
+        self.capacity = 2 * n
+        self.completed = as_completed(loop=self.client.loop)
+
+    def submit(self, fn: Callable[[Any], Any], arg: Any) -> Any:
+        future = self.client.submit(fn, arg, pure=False)
+        self.completed.add(future)
+        return future
+
+    def wait_any(self, futures: set[Any]) -> tuple[set[Any], set[Any]]:
+        while True:
+            finished = next(self.completed)
+            if finished in futures:
+                break
+        done = {finished} | {f for f in futures if f.done()}
+        return done, set(futures) - done
+
+    def close(self) -> None:
+        self.client.close()
+
+
+@contextlib.contextmanager
+def _single_threaded_children() -> Iterator[None]:
+    """Set the thread-count variables (if unset) while worker processes are started."""
+    saved = {k: os.environ.get(k) for k in _THREAD_VARS}
+    for k in _THREAD_VARS:
+        os.environ.setdefault(k, "1")
+    try:
+        yield
+    finally:
+        for k, v in saved.items():
+            if v is None:
+                os.environ.pop(k, None)
+            else:
+                os.environ[k] = v
+
+
+def _make_executor(workers: int, scheduler: str | None) -> _Executor:
+    if scheduler:
+        return _Dask(scheduler)
+    if workers <= 1:
+        return _InProcess()
+    return _LocalPool(workers)
+
+
+# ============================================================================ the batch
+
+def _prepare_basis(protocol: Mapping[str, Any], out: Path, key: str) -> Path | str:
+    """Path of the protocol's basis file (simulated now if missing), or the failure reason."""
+    path = out / "basis" / f"{key}.npz"
+    if not path.is_file():
+        try:
+            _simulate(protocol, path)
+        except InvalidInputError as exc:
+            return str(exc)
+    return path
+
+
+class _Dispatcher:
+    """Feeds tasks to an executor with a bounded number in flight and collects outcomes.
+
+    When a local pool breaks (a worker process killed by the system, e.g. out of memory),
+    every task it held is lost: they are submitted once more to a fresh pool; a task lost
+    twice gets no ``done.json`` and is reported as not processed, so a rerun does it again.
+    """
+
+    def __init__(self, workers: int, scheduler: str | None, summary: BatchSummary,
+                 advance: Callable[[str], None]) -> None:
+        self.workers, self.scheduler = workers, scheduler
+        self.summary, self.advance = summary, advance
+        self.executor: _Executor | None = None
+        self.pending: dict[Any, tuple[dict[str, Any], int]] = {}
+
+    def _finish(self, key: str) -> None:
+        self.summary.n_processed += 1
+        self.advance(key)
+
+    def _collect(self, done: set[Any]) -> None:
+        lost: list[tuple[dict[str, Any], int]] = []
+        for fut in done:
+            task, attempt = self.pending.pop(fut)
+            try:
+                self.executor.result(fut)  # type: ignore[union-attr]
+            except Exception:  # the executor lost the task (run_task itself never raises)
+                lost.append((task, attempt))
+                continue
+            self._finish(task["key"])
+        if lost and isinstance(self.executor, _LocalPool):
+            lost += list(self.pending.values())  # a broken pool loses every task it holds
+            self.pending.clear()
+            self.executor.close()
+            self.executor = None
+        for task, attempt in lost:
+            if attempt < 2:
+                self.submit(task, attempt=attempt + 1)
+            else:
+                self._finish(task["key"])
+
+    def _wait(self) -> None:
+        done, _ = self.executor.wait_any(set(self.pending))  # type: ignore[union-attr]
+        self._collect(done)
+
+    def submit(self, task: dict[str, Any], *, attempt: int = 1) -> None:
+        """Run ``run_task(task)`` on the executor (waiting while too many are in flight)."""
+        if self.executor is None:
+            self.executor = _make_executor(self.workers, self.scheduler)
+        while self.pending and len(self.pending) >= self.executor.capacity:
+            self._wait()
+            if self.executor is None:
+                self.executor = _make_executor(self.workers, self.scheduler)
+        future = self.executor.submit(run_task, task)
+        self.pending[future] = (task, attempt)
+        if isinstance(self.executor, _InProcess):
+            self._collect({future})
+
+    def drain(self) -> None:
+        """Wait for every task in flight."""
+        while self.pending and self.executor is not None:
+            self._wait()
+
+    def close(self) -> None:
+        """Release the executor."""
+        if self.executor is not None:
+            self.executor.close()
+
+
+def _progress(total: int, enabled: bool) -> tuple[Callable[[str], None], Callable[[], None]]:
+    if not enabled:
+        return (lambda _text: None), (lambda: None)
+    from rich.console import Console
+    from rich.progress import (
+        BarColumn,
+        MofNCompleteColumn,
+        Progress,
+        TextColumn,
+        TimeRemainingColumn,
+    )
+
+    bar = Progress(TextColumn("{task.description:<28.28}"), BarColumn(), MofNCompleteColumn(),
+                   TimeRemainingColumn(), console=Console(stderr=True), transient=False)
+    bar.start()
+    task = bar.add_task("scans", total=total)
+
+    def advance(text: str) -> None:
+        bar.update(task, advance=1, description=text)
+
+    return advance, bar.stop
+
+
+def scan_folder(out_dir: Path, key: str) -> Path:
+    """Output folder of one scan: ``OUTDIR/scans/<key>``."""
+    return out_dir / "scans" / key
+
+
+def run_batch(
+    entries: Sequence[ScanEntry],
+    out_dir: str | os.PathLike[str],
+    *,
+    config: Mapping[str, Any] | None = None,
+    workers: int = 1,
+    scheduler: str | None = None,
+    metabolites: Sequence[str] | None = None,
+    macromolecules: bool | None = None,
+    retry_failed: bool = False,
+    progress: bool = False,
+    title: str = "specproc cohort",
+) -> BatchSummary:
+    """Process a cohort, resuming what an earlier run left, and write the cohort summary.
+
+    Parameters
+    ----------
+    entries : sequence of ScanEntry
+        The scans (from :func:`specproc.batch.read_entries`), with unique keys.
+    out_dir : path
+        Output folder (created). Layout: ``scans/<key>/`` (per-scan outputs,
+        ``summary.json``, ``done.json``), ``basis/<key>.npz``, ``cohort.tsv``,
+        ``cohort_qc.tsv``, ``cohort.html``.
+    config : mapping, optional
+        Effective configuration (``specproc.config.load_config``); defaults when omitted.
+    workers : int
+        Local worker processes (1: in this process).
+    scheduler : str, optional
+        Address of a Dask distributed scheduler; overrides ``workers``.
+    metabolites : sequence of str, optional
+        Basis members to simulate (default: the ``[fit] members`` of the configuration when
+        given, else every metabolite definition).
+    macromolecules : bool, optional
+        Add the macromolecule components to the basis (default: the rule of
+        :func:`specproc.workflow.process_scan`, i.e. when TE is below
+        :data:`specproc.workflow.SHORT_TE_S`).
+    retry_failed : bool
+        Process again scans recorded as failed with unchanged inputs.
+    progress : bool
+        Show a progress bar on stderr.
+    title : str
+        Title of ``cohort.html``.
+
+    Returns
+    -------
+    BatchSummary
+    """
+    from specproc.batch.cohort import write_cohort
+    from specproc.config import load_config
+
+    if workers < 1:
+        raise InvalidInputError(f"--workers must be at least 1, got {workers}")
+    out = Path(out_dir).resolve()
+    out.mkdir(parents=True, exist_ok=True)
+    cfg = dict(config) if config is not None else load_config(None)
+    if metabolites is None:
+        members = list((cfg.get("fit") or {}).get("members") or [])
+        metabolites = members or None
+    keys = [e.key for e in entries]
+    if len(set(keys)) != len(keys):
+        raise InvalidInputError("scan identifiers are not unique")
+    entries = sorted(entries, key=lambda e: e.key)
+    summary = BatchSummary(n_scans=len(entries), out_dir=out)
+    config_hash = config_sha256(cfg)
+    if metabolites is not None:
+        from specproc.spins.systems import load_metabolites
+
+        load_metabolites(list(metabolites))  # unknown names: one clear error before any work
+    advance, stop = _progress(len(entries), progress)
+    runner = _Dispatcher(workers, scheduler, summary, advance)
+    bases: dict[str, Path | str] = {}
+    try:
+        with _single_threaded_children():
+            for prep in _prepare(entries, config_hash=config_hash, metabolites=metabolites,
+                                 macromolecules=macromolecules):
+                folder = scan_folder(out, prep.entry.key)
+                previous = done_matches(folder, prep.inputs)
+                if previous is not None and not (
+                    retry_failed and previous.get("status") == "failed"
+                ):
+                    summary.n_skipped += 1
+                    advance(prep.entry.key)
+                    continue
+                reason = prep.reason
+                if prep.protocol is not None:
+                    basis_key = prep.inputs["basis"]
+                    if basis_key not in bases:
+                        bases[basis_key] = _prepare_basis(prep.protocol, out, basis_key)
+                    if isinstance(bases[basis_key], str):
+                        reason = f"basis simulation failed: {bases[basis_key]}"
+                if reason:
+                    folder.mkdir(parents=True, exist_ok=True)
+                    write_outcome(folder, key=prep.entry.key, inputs=prep.inputs,
+                                  summary=failed_summary(reason))
+                    summary.n_processed += 1
+                    advance(prep.entry.key)
+                    continue
+                runner.submit({
+                    "key": prep.entry.key,
+                    "scan_path": str(prep.entry.scan_path),
+                    "water_path": None if prep.entry.water_path is None
+                    else str(prep.entry.water_path),
+                    "out_dir": str(folder),
+                    "basis_path": str(bases[prep.inputs["basis"]]),
+                    "config": cfg,
+                    "tissue": None if prep.entry.tissue is None else dict(prep.entry.tissue),
+                    "overrides": dict(prep.entry.overrides),
+                    "inputs": prep.inputs,
+                })
+            runner.drain()
+    finally:
+        runner.close()
+        stop()
+    counts = write_cohort(entries, out, title=title)
+    summary.n_failed = counts["failed"]
+    summary.n_flagged = counts["flagged"]
+    summary.failures = counts["failures"]
+    summary.tables = {name: out / name for name in ("cohort.tsv", "cohort_qc.tsv",
+                                                    "cohort.html")}
+    return summary

@@ -1,0 +1,292 @@
+"""The unit of work of a cohort run: one scan, processed in a worker, written to its folder.
+
+:func:`run_task` is what the executors call (it is a top-level function of a plain dict, so
+it pickles for local worker processes and for Dask). It
+
+1. removes a stale ``done.json`` of the scan folder (a crash from now on leaves the scan
+   "not done");
+2. processes the scan through :func:`process_one`, i.e. the per-scan workflow
+   :func:`specproc.workflow.process_scan` with the protocol's shared basis (manifest overrides
+   of the header are applied to a copy of the scan, ``input_with_overrides.nii.gz``);
+3. writes ``summary.json`` (the numbers the cohort tables are made of), then ``done.json``
+   (the content hashes of the inputs). Both are atomic writes; ``done.json`` is written last.
+
+A scan that fails is not an error of the batch: the reason (the text of the
+:class:`~specproc.errors.InvalidInputError`, or ``"<ExceptionType>: message"`` for an
+unexpected error) is recorded in both files with ``status = "failed"``.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+import os
+import time
+from collections.abc import Mapping
+from pathlib import Path
+from typing import Any
+
+from specproc._atomic import write_text
+from specproc.errors import InvalidInputError
+
+__all__ = [
+    "DONE_NAME",
+    "SUMMARY_NAME",
+    "done_matches",
+    "failure_reason",
+    "file_sha256",
+    "process_one",
+    "read_json",
+    "run_task",
+    "summarise_fit_json",
+    "write_outcome",
+]
+
+DONE_NAME = "done.json"
+SUMMARY_NAME = "summary.json"
+_DONE_FORMAT = "specproc-batch-done"
+_SUMMARY_FORMAT = "specproc-batch-summary"
+_FORMAT_VERSION = 1
+
+#: QC numbers copied into ``summary.json`` (and the cohort tables), in this order.
+QC_FIELDS: tuple[str, ...] = (
+    "snr", "noise_sd", "naa_fwhm_hz", "naa_fwhm_ppm", "water_fwhm_hz", "water_fwhm_ppm",
+    "residual_ratio", "n_transients", "n_rejected", "drift_range_hz",
+)
+
+_BASIS_CACHE: dict[str, Any] = {}
+
+
+# ============================================================================ small helpers
+def file_sha256(path: str | os.PathLike[str] | None, *, chunk: int = 1 << 20) -> str | None:
+    """SHA-256 of a file's bytes, read in chunks (``None`` for no file)."""
+    if path is None:
+        return None
+    digest = hashlib.sha256()
+    with open(path, "rb") as handle:
+        while block := handle.read(chunk):
+            digest.update(block)
+    return digest.hexdigest()
+
+
+def read_json(path: Path) -> dict[str, Any] | None:
+    """A JSON object from a file, or ``None`` when missing or unreadable."""
+    try:
+        value = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, UnicodeDecodeError, json.JSONDecodeError):
+        return None
+    return value if isinstance(value, dict) else None
+
+
+def _one_line(text: str) -> str:
+    return " ".join(str(text).split())
+
+
+def failure_reason(exc: BaseException) -> str:
+    """One-line reason: ``str(exc)`` for an InvalidInputError, else ``"Type: message"``."""
+    if isinstance(exc, InvalidInputError):
+        return _one_line(str(exc))
+    message = _one_line(str(exc))
+    return f"{type(exc).__name__}: {message}" if message else type(exc).__name__
+
+
+def _num(value: Any) -> float | None:
+    if value is None:
+        return None
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        return None
+    return number if math.isfinite(number) else None
+
+
+def _dumps(value: Mapping[str, Any]) -> str:
+    return json.dumps(value, indent=1, sort_keys=True, allow_nan=False) + "\n"
+
+
+def done_matches(folder: Path, inputs: Mapping[str, Any]) -> dict[str, Any] | None:
+    """The scan's ``summary.json`` if ``done.json`` records exactly ``inputs``, else ``None``.
+
+    The summary's own hash, recorded in ``done.json``, must match too: a folder is trusted
+    only when both files are complete and belong together.
+    """
+    done = read_json(folder / DONE_NAME)
+    if not done or done.get("format") != _DONE_FORMAT or done.get("inputs") != dict(inputs):
+        return None
+    summary_path = folder / SUMMARY_NAME
+    try:
+        raw = summary_path.read_bytes()
+    except OSError:
+        return None
+    if hashlib.sha256(raw).hexdigest() != done.get("summary_sha256"):
+        return None
+    return read_json(summary_path)
+
+
+def write_outcome(folder: Path, *, key: str, inputs: Mapping[str, Any],
+                  summary: Mapping[str, Any]) -> None:
+    """Write ``summary.json`` then ``done.json`` (atomically, in that order)."""
+    text = _dumps({"format": _SUMMARY_FORMAT, "format_version": _FORMAT_VERSION, "key": key,
+                   **summary})
+    write_text(folder / SUMMARY_NAME, text)
+    done = {
+        "format": _DONE_FORMAT,
+        "format_version": _FORMAT_VERSION,
+        "key": key,
+        "status": summary.get("status"),
+        "inputs": dict(inputs),
+        "summary_sha256": hashlib.sha256(text.encode("utf-8")).hexdigest(),
+    }
+    write_text(folder / DONE_NAME, _dumps(done))
+
+
+def failed_summary(reason: str) -> dict[str, Any]:
+    """Summary of a scan that could not be processed."""
+    return {"status": "failed", "reason": reason, "qc": {}, "flags": [], "metabolites": []}
+
+
+# ============================================================================ processing
+def _load_basis(path: str) -> Any:
+    from specproc.basis import BasisSet
+
+    basis = _BASIS_CACHE.get(path)
+    if basis is None:
+        if len(_BASIS_CACHE) > 8:  # a worker sees few protocols; keep memory bounded
+            _BASIS_CACHE.clear()
+        basis = BasisSet.load(path)
+        _BASIS_CACHE[path] = basis
+    return basis
+
+
+def apply_overrides(scan: Any, overrides: Mapping[str, Any]) -> Any:
+    """The Scan with manifest overrides (``te_s``, ``tm_s``, ``tr_s``, ``sequence``) applied."""
+    if not overrides:
+        return scan
+    from specproc.io import normalise_sequence_name
+
+    changes = {k: overrides[k] for k in ("te_s", "tm_s", "tr_s") if k in overrides}
+    if "sequence" in overrides:
+        changes["sequence"] = normalise_sequence_name(str(overrides["sequence"]))
+    return scan.replace(**changes)
+
+
+def _metabolite_rows(table: list[Mapping[str, Any]], quant: Mapping[str, Any]
+                     ) -> list[dict[str, Any]]:
+    """Rows of the tidy cohort table from the fit table and quantification of ``fit.json``."""
+
+    def pick(name: str, key: str) -> float | None:
+        values = quant.get(key)
+        return _num(values.get(name)) if isinstance(values, Mapping) else None
+
+    rows = []
+    for r in table:
+        name = str(r.get("metabolite"))
+        ratio = pick(name, "ratios")
+        rows.append({
+            "metabolite": name,
+            "kind": r.get("kind"),
+            "amplitude": _num(r.get("amplitude")),
+            "crlb_sd": _num(r.get("crlb_sd")),
+            "crlb_percent": _num(r.get("crlb_percent")),
+            "ratio_tcr": ratio if ratio is not None else _num(r.get("ratio_tcr")),
+            "ratio_tcr_sd": pick(name, "ratio_sd"),
+            "ratio_water": pick(name, "ratios_to_water"),
+            "conc_molar_mm": pick(name, "conc_molar_mm"),
+            "conc_molar_sd_mm": pick(name, "conc_molar_sd_mm"),
+            "conc_molal_mmol_kg": pick(name, "conc_molal_mmol_kg"),
+            "conc_molal_sd_mmol_kg": pick(name, "conc_molal_sd_mmol_kg"),
+            "fit_flag": r.get("flag") or "",
+        })
+    return rows
+
+
+def summarise_fit_json(document: Mapping[str, Any]) -> dict[str, Any]:
+    """``summary.json`` content of a processed scan from the ``fit.json`` of its folder.
+
+    The scan is ``"flagged"`` when a QC flag was raised or the fit did not converge.
+    """
+    fit = document.get("fit") or {}
+    qc = document.get("qc") or {}
+    quant = document.get("quantification") or {}
+    numbers: dict[str, Any] = {}
+    for k in QC_FIELDS:
+        v = qc.get(k)
+        numbers[k] = v if isinstance(v, int) and not isinstance(v, bool) else _num(v)
+    flags = [str(f.get("name")) for f in qc.get("flags") or [] if isinstance(f, Mapping)]
+    if "not_converged" in (fit.get("flags") or []):
+        flags.append("fit:not_converged")
+    return {
+        "status": "flagged" if flags else "ok",
+        "reason": "",
+        "qc": numbers,
+        "flags": flags,
+        "statement": str(quant.get("statement") or ""),
+        "metabolites": _metabolite_rows(list(fit.get("table") or []), quant),
+    }
+
+
+def _with_overrides(task: Mapping[str, Any], folder: Path) -> Path:
+    """The scan file to process: the original, or a copy with the manifest overrides."""
+    overrides = task.get("overrides") or {}
+    if not overrides:
+        return Path(task["scan_path"])
+    from specproc.io import load, save
+
+    scan = apply_overrides(load(task["scan_path"]), overrides)
+    path = folder / "input_with_overrides.nii.gz"
+    save(scan, path)
+    return path
+
+
+def process_one(task: Mapping[str, Any]) -> dict[str, Any]:
+    """Process one scan into its folder with :func:`specproc.workflow.process_scan`.
+
+    Returns its summary (raises on failure).
+    """
+    from specproc.workflow import process_scan
+
+    folder = Path(task["out_dir"])
+    folder.mkdir(parents=True, exist_ok=True)
+    basis = _load_basis(task["basis_path"])
+    process_scan(
+        _with_overrides(task, folder), water_path=task.get("water_path"), out_dir=folder,
+        config=task.get("config"), tissue=task.get("tissue"), basis=basis, title=task["key"],
+    )
+    document = read_json(folder / "fit.json")
+    if document is None:
+        raise RuntimeError("the per-scan workflow wrote no readable fit.json")
+    return summarise_fit_json(document)
+
+
+def run_task(task: Mapping[str, Any]) -> dict[str, Any]:
+    """Process one scan and record the outcome in its folder; never raises for a bad scan.
+
+    Parameters
+    ----------
+    task : mapping
+        ``key``, ``scan_path``, ``water_path`` (or None), ``out_dir``, ``basis_path``,
+        ``config`` (dict), ``tissue`` (dict or None), ``overrides`` (dict), ``inputs`` (the
+        hashes recorded in ``done.json``).
+
+    Returns
+    -------
+    dict
+        ``key``, ``status`` (``"ok"``, ``"flagged"`` or ``"failed"``), ``reason``, ``seconds``.
+    """
+    start = time.perf_counter()
+    folder = Path(task["out_dir"])
+    folder.mkdir(parents=True, exist_ok=True)
+    try:
+        (folder / DONE_NAME).unlink()
+    except FileNotFoundError:
+        pass
+    try:
+        summary = process_one(task)
+    except MemoryError:
+        summary = failed_summary("MemoryError: out of memory")
+    except Exception as exc:  # a bad scan must not stop the cohort
+        summary = failed_summary(failure_reason(exc))
+    write_outcome(folder, key=task["key"], inputs=task["inputs"], summary=summary)
+    return {"key": task["key"], "status": summary["status"], "reason": summary["reason"],
+            "seconds": time.perf_counter() - start}

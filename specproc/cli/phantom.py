@@ -1,0 +1,157 @@
+"""``specproc phantom SCAN... --nominal FILE.toml [-o OUTDIR]``: phantom validation and QA.
+
+Each SCAN is measured against the nominal contents of its phantom
+(:func:`specproc.phantom.analyse_phantom`; the nominal file format is described in
+:mod:`specproc.phantom`). The water reference of ``X_svs.nii[.gz]`` is ``X_mrsref.nii[.gz]``
+beside it when it exists (or give ``--water`` once per SCAN, in the same order). Outputs in
+OUTDIR (default ``phantom-qa``):
+
+``phantom_recovery.tsv``
+    One row per scan × compound: nominal and measured concentration (mM), recovery (%), CRLB.
+``phantom_linearity.tsv``
+    One row per compound: slope, intercept (mM) and R² of measured against nominal
+    concentration across the scans (``scipy.stats.linregress``).
+``phantom_qa.tsv``
+    One row per scan, in session order: estimated and nominal temperature, water and singlet
+    shifts, SNR, NAA and water linewidths.
+``phantom_trends.png``
+    SNR, linewidth and temperature across sessions.
+
+Research use only; not a medical device.
+"""
+
+from __future__ import annotations
+
+import io
+import math
+import re
+from pathlib import Path
+
+import click
+
+from specproc.batch.cohort import format_cell
+
+__all__ = ["COMMANDS"]
+
+_QA_COLUMNS = ("scan", "phantom", "session", "temperature_c", "temperature_nominal_c",
+               "water_ppm", "singlet_ppm", "snr", "naa_fwhm_hz", "water_fwhm_hz", "notes")
+
+
+def _tsv(header: tuple[str, ...], rows: list[tuple]) -> str:
+    lines = ["\t".join(header)]
+    lines += ["\t".join(format_cell(v) for v in row) for row in rows]
+    return "\n".join(lines) + "\n"
+
+
+def _water_beside(scan: Path) -> Path | None:
+    match = re.match(r"^(.*)_svs(\.nii(?:\.gz)?)$", scan.name)
+    if not match:
+        return None
+    for suffix in (".nii.gz", ".nii"):
+        candidate = scan.with_name(f"{match.group(1)}_mrsref{suffix}")
+        if candidate.is_file():
+            return candidate
+    return None
+
+
+def _figure(measurements: list) -> bytes:
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    labels = [m.session or str(i + 1) for i, m in enumerate(measurements)]
+    x = list(range(len(measurements)))
+    fig = Figure(figsize=(8.0, 6.5), layout="constrained")
+    FigureCanvasAgg(fig)
+    axes = fig.subplots(3, 1, sharex=True)
+    axes[0].plot(x, [m.snr for m in measurements], "o-", color="#2e6e9e")
+    axes[0].set_ylabel("SNR (NAA)")
+    axes[1].plot(x, [m.naa_fwhm_hz for m in measurements], "o-", color="#9e5a2e",
+                 label="NAA")
+    if any(math.isfinite(m.water_fwhm_hz) for m in measurements):
+        axes[1].plot(x, [m.water_fwhm_hz for m in measurements], "s--", color="#5a9e2e",
+                     label="water")
+    axes[1].set_ylabel("FWHM (Hz)")
+    axes[1].legend(fontsize=8, frameon=False)
+    axes[2].plot(x, [m.temperature_c for m in measurements], "o-", color="#7a2e9e",
+                 label="estimated")
+    nominal = [m.temperature_nominal_c for m in measurements]
+    if any(v is not None for v in nominal):
+        axes[2].plot(x, [math.nan if v is None else v for v in nominal], "x", color="0.3",
+                     label="thermometer")
+    axes[2].set_ylabel("temperature (°C)")
+    axes[2].legend(fontsize=8, frameon=False)
+    axes[2].set_xticks(x, labels, rotation=45, ha="right", fontsize=7)
+    axes[2].set_xlabel("session")
+    fig.suptitle("Phantom QA across sessions (research use only)", fontsize=10)
+    buffer = io.BytesIO()
+    fig.savefig(buffer, format="png", dpi=100, metadata={"Software": None})
+    return buffer.getvalue()
+
+
+@click.command("phantom")
+@click.argument("scans", metavar="SCAN...", nargs=-1, required=True,
+                type=click.Path(dir_okay=False, path_type=Path))
+@click.option("--nominal", "nominal_file", required=True, metavar="FILE.toml",
+              type=click.Path(dir_okay=False, path_type=Path),
+              help="Nominal phantom contents (TOML; see specproc.phantom).")
+@click.option("--water", "water_files", multiple=True, metavar="REF",
+              type=click.Path(dir_okay=False, path_type=Path),
+              help="Water reference of each SCAN, in order (default: *_mrsref beside it).")
+@click.option("--config", "config_file", metavar="FILE",
+              type=click.Path(dir_okay=False, path_type=Path),
+              help="TOML configuration (see `specproc config show`).")
+@click.option("-o", "--output", "out_dir", default=Path("phantom-qa"), show_default=True,
+              metavar="OUTDIR", type=click.Path(file_okay=False, path_type=Path),
+              help="Output folder.")
+def phantom(scans: tuple[Path, ...], nominal_file: Path, water_files: tuple[Path, ...],
+            config_file: Path | None, out_dir: Path) -> None:
+    """Validate phantom scans: recovery, linearity, temperature, SNR and linewidth trends."""
+    from specproc._atomic import write_bytes, write_text
+    from specproc.config import load_config
+    from specproc.errors import InvalidInputError
+    from specproc.phantom import analyse_phantom, linearity, load_nominal
+
+    nominal = load_nominal(nominal_file)
+    config = load_config(config_file)
+    if water_files and len(water_files) != len(scans):
+        raise InvalidInputError(
+            f"give --water once per SCAN ({len(scans)} scans, {len(water_files)} references)")
+    measurements = []
+    for i, scan in enumerate(scans):
+        water = water_files[i] if water_files else _water_beside(scan)
+        measurements.append(analyse_phantom(scan, nominal, water_path=water, config=config))
+    order = sorted(range(len(measurements)),
+                   key=lambda i: (measurements[i].session, measurements[i].scan))
+    measurements = [measurements[i] for i in order]
+
+    recovery_rows = []
+    for m in measurements:
+        for name, value in m.nominal_mm.items():
+            recovery_rows.append((m.scan, m.phantom, m.session, name, value, m.measured_mm[name],
+                                  m.recovery_percent[name], m.crlb_percent[name]))
+    lin = linearity(measurements)
+    qa_rows = [(m.scan, m.phantom, m.session, m.temperature_c, m.temperature_nominal_c,
+                m.water_ppm, m.singlet_ppm, m.snr, m.naa_fwhm_hz, m.water_fwhm_hz,
+                "; ".join(m.notes)) for m in measurements]
+    write_text(out_dir / "phantom_recovery.tsv", _tsv(
+        ("scan", "phantom", "session", "compound", "nominal_mm", "measured_mm",
+         "recovery_percent", "crlb_percent"), recovery_rows))
+    write_text(out_dir / "phantom_linearity.tsv", _tsv(
+        ("compound", "slope", "intercept_mm", "r_squared", "n"),
+        [(k, v["slope"], v["intercept_mm"], v["r_squared"], v["n"]) for k, v in lin.items()]))
+    write_text(out_dir / "phantom_qa.tsv", _tsv(_QA_COLUMNS, qa_rows))
+    write_bytes(out_dir / "phantom_trends.png", _figure(measurements))
+
+    click.echo(f"thermometry: {nominal.thermometry.formula()}")
+    for m in measurements:
+        rec = ", ".join(f"{n} {format_cell(v)} %" for n, v in m.recovery_percent.items())
+        click.echo(f"{m.scan}: T = {format_cell(round(m.temperature_c, 2))} C; "
+                   f"recovery {rec}")
+    for name, v in lin.items():
+        click.echo(f"linearity {name}: slope {format_cell(v['slope'])}, intercept "
+                   f"{format_cell(v['intercept_mm'])} mM, R2 {format_cell(v['r_squared'])} "
+                   f"(n={v['n']})")
+    click.echo(f"tables and figure in {out_dir}")
+
+
+COMMANDS = [phantom]
