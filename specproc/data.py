@@ -20,7 +20,7 @@ from __future__ import annotations
 
 import dataclasses
 import datetime as _dt
-from collections.abc import Mapping, Sequence
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -286,7 +286,3 @@ def _positive_float(value: Any, what: str, where: str | None) -> float:
         raise InvalidInputError(f"the {what} must be positive, got {number}", where)
     return number
 
-
-def stack_fids(fids: Sequence[np.ndarray]) -> np.ndarray:
-    """Stack 1-D FIDs of equal length into a (n, n_points) array (helper for loaders)."""
-    return np.stack([np.asarray(f) for f in fids])

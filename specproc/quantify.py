@@ -88,7 +88,7 @@ WATER_PROTONS: int = 2
 DEFAULT_COMBINATIONS: Mapping[str, tuple[str, ...]] = {
     "tNAA": ("NAA", "NAAG"),
     "tCr": ("Cr", "PCr"),
-    "tCho": ("GPC", "PCh", "Cho"),
+    "tCho": ("GPC", "PCh", "PCho", "Cho"),  # as specproc.fit.crlb.COMBINED_SUMS
     "Glx": ("Glu", "Gln"),
 }
 

@@ -105,3 +105,18 @@ def test_cli_config_show_and_check(tmp_path):
     assert failed.exit_code == 2
     lines = failed.output.strip().splitlines()
     assert len(lines) == 1 and lines[0].startswith("specproc: error: ")
+
+
+@pytest.mark.parametrize("text, message", [
+    ('[preprocess.phasing]\nmethod = "bogus"\n', "preprocess.phasing.method"),
+    ("[fit]\nbaseline_knot_ppm = -1.0\n", "baseline_knot_ppm"),
+])
+def test_cli_config_check_rejects_what_a_run_would_reject(tmp_path, text, message):
+    # "valid" must mean that preprocess and fit accept the file: the same checks they make
+    path = tmp_path / "user.toml"
+    path.write_text(text)
+    result = CliRunner().invoke(main, ["config", "check", str(path)])
+    assert result.exit_code == 2
+    lines = [ln for ln in result.output.splitlines() if ln.strip()]
+    assert len(lines) == 1 and lines[0].startswith("specproc: error:")
+    assert "user.toml" in lines[0] and message in lines[0]

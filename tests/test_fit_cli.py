@@ -116,3 +116,12 @@ def test_bad_inputs_give_one_line_and_exit_2(files, tmp_path, case, args, messag
     assert len(lines) == 1 and lines[0].startswith("specproc: error:")
     assert message in lines[0]
     assert not out.exists() or not any(out.iterdir())
+
+
+def test_macromolecule_rule_matches_the_workflow():
+    # `specproc fit`, `specproc demo` and `specproc batch` must choose the same basis for the
+    # same scan: one short-TE rule (TE < SHORT_TE_S; common practice).
+    from specproc.cli import fit as fit_cli
+    from specproc.workflow import SHORT_TE_S
+
+    assert fit_cli.SHORT_TE_S == SHORT_TE_S

@@ -128,3 +128,63 @@ def test_fit_with_duplicate_members_flags_singular_fisher_without_crashing():
     assert not res.success
     # the sum of the two copies is still determined by the data
     assert res.amplitudes[0] + res.amplitudes[1] == pytest.approx(2.0, rel=0.02)
+
+
+def test_zero_filled_data_are_flagged_because_the_bound_is_too_small():
+    # Zero filling by 2 correlates neighbouring spectral points; JᵀJ/s² counts them as
+    # independent, so the bound drops by about √2 below the Kay 1993 closed form
+    # σ / sqrt(Σ exp(-2αt)) of the measured points. Such a fit must carry a flag.
+    alpha, sigma, n = 20.0, 0.05, 1024
+    scan, _, t = _single_line_case(n=n, alpha=alpha, sigma=sigma)
+    filled = Scan(np.concatenate([scan.data, np.zeros(n, complex)]), dwell_s=1e-3,
+                  spectrometer_mhz=MHZ, centre_ppm=CENTRE)
+    t2 = np.arange(2 * n) * 1e-3
+    basis = BasisSet(names=("S",), fids=_line(t2, 2.0)[None, :], dwell_s=1e-3,
+                     spectrometer_mhz=MHZ, centre_ppm=CENTRE)
+    ppm = filled.ppm()
+    config = {"range_ppm": [float(ppm.min()), float(ppm.max())], "baseline": False,
+              "fixed": ["damping", "gauss", "phase1", "phase0", "shift"], "shift_sd_hz": 0.0,
+              "start_lorentz_hz": alpha / np.pi, "start_gauss_hz": 0.0,
+              # spectral noise SD per component, the same with or without the added zeros
+              # (Parseval: sqrt(N)·σ over the N measured points)
+              "noise_sd": sigma * np.sqrt(n)}
+    res = fit_spectrum(filled, basis, config=config)
+    kay = sigma / np.sqrt(np.sum(np.exp(-2 * alpha * t)))
+    assert res.crlb_sd[0] < 0.8 * kay  # the too-small bound the flag warns about
+    assert "zero_filled_data" in res.flags
+    ppm1 = scan.ppm()
+    plain = fit_spectrum(scan, basis_for(scan),
+                         config={**config, "range_ppm": [float(ppm1.min()), float(ppm1.max())]})
+    assert plain.crlb_sd[0] == pytest.approx(kay, rel=1e-9)
+    assert "zero_filled_data" not in plain.flags
+
+
+def basis_for(scan):
+    t = np.arange(scan.n_points) * scan.dwell_s
+    return BasisSet(names=("S",), fids=_line(t, 2.0)[None, :], dwell_s=scan.dwell_s,
+                    spectrometer_mhz=MHZ, centre_ppm=CENTRE)
+
+
+def test_fit_and_quantification_sum_the_same_members():
+    # results.tsv takes the sums from specproc.quantify and the QC CRLB flags from the fit's
+    # sums: both must mean the same members (common practice naming: tNAA, tCr, tCho, Glx).
+    from specproc.fit.crlb import COMBINED_SUMS
+    from specproc.quantify import DEFAULT_COMBINATIONS
+
+    fit_members = {k: {a for alias in v for a in alias} for k, v in COMBINED_SUMS.items()}
+    quant_members = {k: set(v) for k, v in DEFAULT_COMBINATIONS.items()}
+    assert fit_members == quant_members
+    sums = combine_sums(("GPC", "Cho"), np.array([1.0, 0.5]), np.eye(2) * 0.01)
+    assert sums["tCho"]["components"] == ["GPC", "Cho"]
+
+
+def test_apodized_data_are_flagged():
+    # exponential apodization multiplies the noise by exp(-π L t): coloured spectral noise, so
+    # the independent-points Fisher matrix no longer describes it (Kay 1993, ch. 3)
+    from specproc.preprocess.apodize import apodize_scan
+
+    scan, basis, _ = _single_line_case(n=512)
+    config = {"baseline": False, "range_ppm": [1.0, 4.2]}
+    assert "apodized_data" not in fit_spectrum(scan, basis, config=config).flags
+    smooth = apodize_scan(scan, kind="exponential", lw_hz=2.0)
+    assert "apodized_data" in fit_spectrum(smooth, basis, config=config).flags

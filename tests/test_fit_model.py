@@ -18,7 +18,7 @@ from specproc.data import Scan
 from specproc.errors import InvalidInputError
 from specproc.fit import fit_spectrum
 from specproc.fit.baseline import bspline_design, second_difference
-from specproc.fit.model import _resample_fids, build_model, start_values
+from specproc.fit.model import _resample_fids, build_model, lorentz_fwhm_hz, start_values
 from specproc.fit.settings import FitSettings
 from specproc.fit.varpro import VarproProblem
 
@@ -223,3 +223,17 @@ def test_first_order_phase_is_reported_in_degrees_per_ppm():
     assert res.phase1_deg_per_ppm == pytest.approx(20.0, abs=1e-6)
     expected0 = np.degrees(0.4) + 20.0 * (res.phase1_pivot_ppm - 2.35)
     assert res.phase0_deg == pytest.approx(expected0, abs=1e-5)
+
+
+def test_damping_prior_is_given_as_a_lorentzian_width_in_hz():
+    # exp(-γ t) has a Lorentzian FWHM of γ/π Hz (textbook FT pair), so a prior SD of w Hz on
+    # the width is an SD of π·w s⁻¹ on the damping-rate parameter (the unit in the setting's
+    # name, damping_sd_hz, is the unit of its value)
+    basis = make_basis()
+    scan = make_scan(basis, TRUE, noise=0.02, seed=3)
+    model = build_model(scan, np.asarray(basis.fids), basis.names, basis.kinds,
+                        FitSettings(damping_sd_hz=2.0))
+    lay = model.layout
+    np.testing.assert_allclose(lay.prior_sd[lay.i_ddamp], np.pi * 2.0)
+    np.testing.assert_allclose(lay.upper[lay.i_ddamp], 4 * np.pi * 2.0)
+    assert lorentz_fwhm_hz(np.pi * 2.0) == pytest.approx(2.0)

@@ -2,7 +2,8 @@
 
 ``specproc config show`` prints the bundled defaults (TOML with comments), to be copied, edited
 and passed back with ``--config FILE``; ``specproc config check FILE`` merges a user file over
-the defaults and reports the first problem (unknown key, wrong type) as a one-line error.
+the defaults and reports the first problem (unknown key, wrong type, a choice or a fit setting
+out of range) as a one-line error.
 """
 
 from __future__ import annotations
@@ -30,8 +31,17 @@ def show() -> None:
 @config_group.command("check")
 @click.argument("file", type=click.Path(dir_okay=False, path_type=Path))
 def check(file: Path) -> None:
-    """Check FILE against the defaults (unknown keys and wrong types are errors)."""
-    load_config(file)
+    """Check FILE against the defaults (unknown keys, wrong types and bad choices are errors)."""
+    from specproc.errors import InvalidInputError
+    from specproc.fit import settings_from_config
+    from specproc.preprocess.pipeline import _check_choices
+
+    config = load_config(file)
+    try:  # the checks the commands make before any work, so that "valid" means it will run
+        _check_choices(config["preprocess"])
+        settings_from_config(config)
+    except InvalidInputError as exc:
+        raise exc.with_path(file) from None
     click.echo(f"{file}: configuration is valid")
 
 

@@ -28,9 +28,11 @@ from specproc.errors import InvalidInputError
 
 __all__ = ["COMMANDS", "fit_command", "provenance_versions"]
 
-#: Echo times up to this value get the macromolecule/lipid members by default, s (common
-#: practice: macromolecules are visible at short TE).
-SHORT_TE_S = 0.05
+#: Echo times below this value get the macromolecule/lipid members by default, s (common
+#: practice: macromolecules are visible at short TE). The same rule as
+#: :data:`specproc.workflow.SHORT_TE_S` (``specproc demo`` and ``specproc batch``); kept here as
+#: a literal so that the command-line help does not import the workflow.
+SHORT_TE_S = 0.06
 
 
 def provenance_versions() -> dict[str, str]:
@@ -90,7 +92,7 @@ def _get_basis(choice: str | None, scan: Any, *, field_t: float | None, te_ms: f
         overrides["sequence"] = sequence
     te = overrides.get("te_s", scan.te_s)
     if macromolecules is None:
-        macromolecules = te is not None and te <= SHORT_TE_S
+        macromolecules = te is not None and te < SHORT_TE_S
     overrides["macromolecules"] = macromolecules
     return basis_for_scan(scan, **overrides), "simulated (specproc.basis.basis_for_scan)"
 
@@ -114,7 +116,7 @@ def _get_basis(choice: str | None, scan: Any, *, field_t: float | None, te_ms: f
               help="Sequence of the simulated basis (default: from the scan).")
 @click.option("--macromolecules/--no-macromolecules", default=None,
               help="Add macromolecule/lipid members to a simulated basis "
-                   f"(default: when TE <= {SHORT_TE_S * 1e3:g} ms).")
+                   f"(default: when TE < {SHORT_TE_S * 1e3:g} ms).")
 @click.option("-o", "--output", "out_dir", required=True, metavar="OUTDIR",
               type=click.Path(file_okay=False, path_type=Path),
               help="Output folder (created if needed).")

@@ -40,7 +40,7 @@ __all__ = [
 COMBINED_SUMS: dict[str, tuple[tuple[str, ...], ...]] = {
     "tNAA": (("NAA",), ("NAAG",)),
     "tCr": (("Cr",), ("PCr",)),
-    "tCho": (("GPC",), ("PCh", "PCho")),
+    "tCho": (("GPC",), ("PCh", "PCho"), ("Cho",)),  # as specproc.quantify.DEFAULT_COMBINATIONS
     "Glx": (("Glu",), ("Gln",)),
 }
 

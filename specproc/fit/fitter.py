@@ -11,6 +11,7 @@ deviations); then the Cramér-Rao bounds of the full model. The model is documen
 
 from __future__ import annotations
 
+import dataclasses
 import time
 from typing import Any
 
@@ -162,8 +163,28 @@ def _fit(scan: Scan, basis: BasisSet, config: Any) -> FitResult:
         pmat = np.zeros((0, 0))
     problem = VarproProblem(model, data, bmat, pmat, noise_sd)
     theta, messages, ok, nfev = _optimise(problem, model, settings)
-    return _assemble(problem, model, theta, settings, names, kinds, noise_sd, noise_regions,
-                     messages, ok, nfev, start)
+    result = _assemble(problem, model, theta, settings, names, kinds, noise_sd, noise_regions,
+                       messages, ok, nfev, start)
+    if _zero_filled_points(scan.data):
+        # Zero filling makes neighbouring spectral points correlated while F = JᵀJ/s² treats
+        # them as independent: the bounds come out too small (by about √factor).
+        result = dataclasses.replace(result, flags=(*result.flags, "zero_filled_data"))
+    if any(record.get("Method") == "apodization" for record in scan.provenance):
+        # An apodized FID has coloured noise: the same independence assumption fails.
+        result = dataclasses.replace(result, flags=(*result.flags, "apodized_data"))
+    return result
+
+
+def _zero_filled_points(fid: np.ndarray) -> int:
+    """Length of the run of exact zeros at the end of the FID if it looks zero-filled, else 0.
+
+    A measured FID never ends in a long run of exact zeros; a run of at least 8 points and an
+    eighth of the FID is taken as zero filling.
+    """
+    nonzero = np.flatnonzero(np.asarray(fid) != 0)
+    n = int(np.asarray(fid).shape[-1])
+    run = n if nonzero.size == 0 else n - 1 - int(nonzero[-1])
+    return run if run >= max(8, n // 8) else 0
 
 
 def _optimise(

@@ -234,13 +234,15 @@ def _make_layout(
             upper.append(4.0 * settings.shift_sd_hz)
             prior.append(settings.shift_sd_hz)
     if settings.damping_sd_hz > 0:
+        # the setting is a Lorentzian FWHM in Hz; the parameter a damping rate γ = π·FWHM, s⁻¹
+        damping_sd_per_s = np.pi * settings.damping_sd_hz
         for m in range(n_members):
             i_ddamp.append(len(names))
             names.append(f"ddamping_{m}_per_s")
             families.append("damping_dev")
-            lower.append(-4.0 * settings.damping_sd_hz)
-            upper.append(4.0 * settings.damping_sd_hz)
-            prior.append(settings.damping_sd_hz)
+            lower.append(-4.0 * damping_sd_per_s)
+            upper.append(4.0 * damping_sd_per_s)
+            prior.append(damping_sd_per_s)
     return NonlinearLayout(
         names=tuple(names),
         families=tuple(families),

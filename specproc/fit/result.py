@@ -96,7 +96,10 @@ class FitResult:
         Optimiser message.
     flags : tuple of str
         Warnings: ``fisher_singular``, ``at_zero_bound:<name>``, ``at_bound:<parameter>``,
-        ``not_converged``.
+        ``not_converged``, ``zero_filled_data`` (the FID ends in zeros: the bounds, which treat
+        the spectral points as independent, are too small; fit data without zero filling),
+        ``apodized_data`` (an apodization step is in the provenance: coloured noise, the same
+        caveat).
     nfev : int
         Number of model evaluations.
     elapsed_s : float

@@ -72,7 +72,9 @@ class FitSettings:
     shift_sd_hz : float
         Prior SD of the per-member deviation from its group's shift, Hz (0: no deviations).
     damping_sd_hz : float
-        Prior SD of the per-member deviation from its group's damping, s⁻¹ (0: none).
+        Prior SD of the per-member deviation from its group's Lorentzian width, as a FWHM in
+        Hz (the damping-rate parameter ``ddamping_<k>_per_s`` has SD ``π · damping_sd_hz``
+        s⁻¹); 0: none.
     shift_search_ppm : float
         Half-width of the coarse frequency search, ppm.
     shift_limit_ppm : float

@@ -173,11 +173,14 @@ def remove_water_scan(
     """
     if scan.dims != ():
         raise InvalidInputError("residual water removal needs one averaged FID", scan.source)
-    cleaned, removed = remove_water(
-        scan.data, dwell_s=scan.dwell_s, spectrometer_mhz=scan.spectrometer_mhz,
-        centre_ppm=scan.reference_ppm, band_ppm=band_ppm, model_order=model_order,
-        fit_points=fit_points,
-    )
+    try:
+        cleaned, removed = remove_water(
+            scan.data, dwell_s=scan.dwell_s, spectrometer_mhz=scan.spectrometer_mhz,
+            centre_ppm=scan.reference_ppm, band_ppm=band_ppm, model_order=model_order,
+            fit_points=fit_points,
+        )
+    except InvalidInputError as exc:  # name the file (e.g. too few points for the order)
+        raise exc.with_path(scan.source) if scan.source else exc from None
     shift = hz_to_ppm(removed.freq_hz, spectrometer_mhz=scan.spectrometer_mhz,
                       centre_ppm=scan.reference_ppm)
     details = {
