@@ -678,14 +678,16 @@ def basis_for_scan(scan: Any, **overrides: Any) -> BasisSet:
     seq_name = overrides.pop("sequence", None) or scan.sequence
     if not seq_name:
         raise InvalidInputError(
-            "the scan does not say which sequence acquired it; give sequence=... "
-            "(pulse-acquire, spin-echo, press, steam, semi-laser)",
+            "the scan does not say which sequence acquired it; name it with --sequence "
+            "or a manifest column (pulse-acquire, spin-echo, press, steam, semi-laser)",
             where,
         )
     try:
         seq_name = normalise_sequence_name(seq_name)
     except InvalidInputError as exc:
-        raise InvalidInputError(f"{exc.message}; give sequence=... to override", where) from None
+        raise InvalidInputError(
+            f"{exc.message}; name the sequence with --sequence to override", where
+        ) from None
     args: dict[str, Any] = {
         "sequence": seq_name,
         "field_t": field_from_larmor(scan.spectrometer_mhz, scan.nucleus),

@@ -205,3 +205,16 @@ def test_console_script_runs():
     )
     assert result.returncode == 0, result.stderr
     assert json.loads(result.stdout)["n_points"] == 1024
+
+
+@pytest.mark.parametrize(
+    "args",
+    [["info"], ["nosuch-command"], ["basis", "simulate", "--sequence", "foo", "--field", "3"]],
+)
+def test_usage_errors_are_one_line_exit_2(args: list[str]) -> None:
+    # DESIGN.md (errors): every bad invocation gives one line `specproc: error: ...`, exit 2
+    result = CliRunner().invoke(main, args)
+    assert result.exit_code == 2
+    lines = result.output.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("specproc: error: "), result.output
+    assert "--help" in lines[0]

@@ -31,6 +31,12 @@ class _Group(click.Group):
     def invoke(self, ctx: click.Context) -> Any:
         try:
             return super().invoke(ctx)
+        except click.UsageError as exc:  # bad option or argument: one line, exit 2
+            if ctx.params.get("debug"):
+                raise
+            where = exc.ctx.command_path if exc.ctx is not None else "specproc"
+            click.echo(f"specproc: error: {exc.format_message()} (see '{where} --help')", err=True)
+            ctx.exit(2)
         except SpecprocError as exc:
             if ctx.params.get("debug"):
                 raise
