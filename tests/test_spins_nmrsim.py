@@ -114,10 +114,7 @@ def test_a2b2_with_equivalent_groups_matches_nmrsim():
 )
 def test_metabolite_matches_nmrsim(name, field_t):
     # the issue asks for glutamate and myo-inositol at 3 T; the other fields cover 1.5-9.4 T
-    try:
-        (met,) = load_metabolites([name])
-    except Exception as exc:  # pragma: no cover - depends on the definitions helper
-        pytest.skip(f"definition of {name} not available yet: {exc}")
+    (met,) = load_metabolites([name])
     mhz = larmor_mhz(field_t)
     coupled = [(g, c) for g, c in met.spin_systems() if c]
     assert coupled, f"{name} has no coupled spin system"

@@ -15,14 +15,12 @@ relative error < 1e-6.
 from __future__ import annotations
 
 import numpy as np
-import pytest
+import qutip
 
-qutip = pytest.importorskip("qutip")
-
-from specproc.constants import larmor_mhz  # noqa: E402
-from specproc.spins.sequences import build_sequence  # noqa: E402
-from specproc.spins.simulate import simulate_spin_system, synthesize_fid  # noqa: E402
-from specproc.spins.systems import Coupling, SpinGroup  # noqa: E402
+from specproc.constants import larmor_mhz
+from specproc.spins.sequences import build_sequence
+from specproc.spins.simulate import simulate_spin_system, synthesize_fid
+from specproc.spins.systems import Coupling, SpinGroup
 
 MHZ = larmor_mhz(3.0)
 CENTRE = 4.65
