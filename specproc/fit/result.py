@@ -345,9 +345,13 @@ def plot_fit(result: FitResult, *, title: str | None = None, max_members: int = 
     resid = result.residual.real
     contrib = result.contributions.real
     order = np.argsort(-result.amplitudes)[:max_members]
-    fig = Figure(figsize=(8.5, 9.0), layout="constrained")
+    # fixed margins: a layout engine would cost more than drawing the figure (cohort runs)
+    fig = Figure(figsize=(8.5, 9.0))
     FigureCanvasAgg(fig)
-    top, bottom = fig.subplots(2, 1, sharex=True, height_ratios=[1.3, 1.7])
+    top, bottom = fig.subplots(
+        2, 1, sharex=True, height_ratios=[1.3, 1.7],
+        gridspec_kw={"left": 0.09, "right": 0.98, "top": 0.95, "bottom": 0.06, "hspace": 0.06},
+    )
     span = float(np.ptp(data)) or 1.0
     offset = float(data.max()) + 0.15 * span - float(resid.min())
     top.plot(ppm, data, color="0.25", lw=0.9, label="data")
