@@ -14,6 +14,16 @@ from pathlib import Path
 __all__ = ["atomic_path", "write_bytes", "write_text"]
 
 
+def _read_umask() -> int:
+    # os.umask can only be read by setting it; done once, at import, not while threads write
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
+
+
+_UMASK = _read_umask()
+
+
 def _suffixes(path: Path) -> str:
     return "".join(path.suffixes[-2:]) if path.name.endswith(".gz") else path.suffix
 
@@ -34,9 +44,7 @@ def atomic_path(path: str | os.PathLike[str]) -> Iterator[Path]:
     os.close(fd)
     tmp = Path(tmp_name)
     # mkstemp creates owner-only files; give the output the usual permissions of the umask.
-    umask = os.umask(0)
-    os.umask(umask)
-    os.chmod(tmp, 0o666 & ~umask)
+    os.chmod(tmp, 0o666 & ~_UMASK)
     try:
         yield tmp
         os.replace(tmp, target)
