@@ -43,6 +43,7 @@ from typing import Any
 
 import numpy as np
 
+from specproc._json import to_jsonable
 from specproc.constants import WATER_MOLAR_MM
 from specproc.errors import InvalidInputError
 
@@ -888,7 +889,7 @@ class Quantification:
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-serialisable dict (NaN and infinity written as ``None``)."""
-        return _jsonable(
+        return to_jsonable(
             {
                 "statement": self.statement,
                 "reference": self.reference,
@@ -1097,7 +1098,7 @@ def quantify(
             amplitude_sd=amp_sd, reference=reference, ratios=ratios, ratio_sd=ratio_sd,
             ratios_to_water=None, ratios_to_water_sd=None, conc_molar_mm=None,
             conc_molar_sd_mm=None, conc_molal_mmol_kg=None, conc_molal_sd_mmol_kg=None,
-            statement=statement, formula=formula, constants=_jsonable(constants),
+            statement=statement, formula=formula, constants=to_jsonable(constants),
             notes=tuple(notes),
         )
 
@@ -1185,7 +1186,7 @@ def quantify(
         reference=reference, ratios=ratios, ratio_sd=ratio_sd, ratios_to_water=to_water,
         ratios_to_water_sd=to_water_sd, conc_molar_mm=molar, conc_molar_sd_mm=molar_sd,
         conc_molal_mmol_kg=molal, conc_molal_sd_mmol_kg=molal_sd, statement=statement,
-        formula=formula, constants=_jsonable(constants), notes=tuple(notes),
+        formula=formula, constants=to_jsonable(constants), notes=tuple(notes),
     )
 
 
@@ -1226,19 +1227,3 @@ def _positive(
 
 def _json_number(x: float) -> float | None:
     return float(x) if math.isfinite(x) else None
-
-
-def _jsonable(obj: Any) -> Any:
-    if isinstance(obj, Mapping):
-        return {str(k): _jsonable(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [_jsonable(v) for v in obj]
-    if isinstance(obj, (bool, np.bool_)):
-        return bool(obj)
-    if isinstance(obj, (int, np.integer)):
-        return int(obj)
-    if isinstance(obj, (float, np.floating)):
-        return _json_number(float(obj))
-    if isinstance(obj, np.ndarray):
-        return _jsonable(obj.tolist())
-    return obj

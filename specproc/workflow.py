@@ -42,8 +42,8 @@ from typing import Any
 import numpy as np
 
 from specproc._atomic import write_bytes, write_text
+from specproc._json import dumps
 from specproc.basis import BasisSet, basis_for_scan
-from specproc.cli._common import dumps
 from specproc.config import load_config, merge_config
 from specproc.data import Scan
 from specproc.errors import InvalidInputError
@@ -149,7 +149,7 @@ class ScanOutcome:
 
     def to_dict(self) -> dict[str, Any]:
         """Plain JSON-able dict (NaN as ``None``)."""
-        from specproc.cli._common import to_jsonable
+        from specproc._json import to_jsonable
 
         return to_jsonable({**asdict(self), "qc_passed": self.qc_passed})
 

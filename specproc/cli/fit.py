@@ -125,7 +125,7 @@ def fit_command(scan_file: Path, water_file: Path | None, basis_choice: str | No
                 sequence: str | None, macromolecules: bool | None, out_dir: Path) -> None:
     """Fit SCAN as a linear combination of basis signals; write results.tsv, fit.json, fit.png."""
     from specproc._atomic import write_bytes, write_text
-    from specproc.cli._common import dumps
+    from specproc._json import dumps
     from specproc.config import load_config
     from specproc.fit import fit_spectrum, plot_fit, result_to_dict
     from specproc.fit.result import figure_png, results_tsv_text

@@ -7,13 +7,13 @@ from __future__ import annotations
 
 import io
 import os
-from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 
 from specproc._atomic import write_bytes, write_text
+from specproc._json import to_jsonable
 
 __all__ = [
     "FitResult",
@@ -286,24 +286,6 @@ def result_to_text(result: FitResult) -> str:
     return "\n".join(out) + "\n"
 
 
-def _plain(value: Any) -> Any:
-    if isinstance(value, Mapping):
-        return {str(k): _plain(v) for k, v in value.items()}
-    if isinstance(value, list | tuple):
-        return [_plain(v) for v in value]
-    if isinstance(value, np.ndarray):
-        if np.iscomplexobj(value):
-            return {"re": _plain(value.real), "im": _plain(value.imag)}
-        return _plain(value.tolist())
-    if isinstance(value, np.generic):
-        return _plain(value.item())
-    if isinstance(value, float):
-        return value if np.isfinite(value) else None
-    if isinstance(value, complex):
-        return {"re": _plain(value.real), "im": _plain(value.imag)}
-    return value
-
-
 def result_to_dict(result: FitResult, *, spectra: bool = True) -> dict[str, Any]:
     """Every field as plain JSON values (NaN becomes None; complex arrays ``{"re", "im"}``).
 
@@ -319,7 +301,7 @@ def result_to_dict(result: FitResult, *, spectra: bool = True) -> dict[str, Any]
                                     "contributions"):
             continue
         out[name] = getattr(result, name)
-    return _plain(out)
+    return to_jsonable(out)
 
 
 # ---------------------------------------------------------------------- figure

@@ -43,6 +43,7 @@ from typing import Any
 import nibabel as nib
 import numpy as np
 
+from specproc._json import to_jsonable
 from specproc.data import Scan, is_valid_dim_tag
 from specproc.errors import InvalidInputError
 from specproc.io._util import (
@@ -398,7 +399,7 @@ def write_nifti_mrs(scan: Scan, path: str | os.PathLike[str]) -> None:
         )
     meta = _json_header(scan)
     try:
-        text = json.dumps(_jsonable(meta), allow_nan=False, ensure_ascii=False)
+        text = json.dumps(to_jsonable(meta), allow_nan=False, ensure_ascii=False)
     except (TypeError, ValueError) as exc:
         raise InvalidInputError(f"the header cannot be stored as JSON: {exc}", target) from None
     data = np.moveaxis(np.asarray(scan.data), -1, 0)  # (time, dim5, dim6, dim7)
@@ -413,15 +414,3 @@ def write_nifti_mrs(scan: Scan, path: str | os.PathLike[str]) -> None:
     hdr.extensions.append(nib.nifti1.Nifti1Extension(EXTENSION_CODE, text.encode("utf-8")))
     with atomic_path(target) as tmp:
         img.to_filename(str(tmp))
-
-
-def _jsonable(value: Any) -> Any:
-    if isinstance(value, dict):
-        return {str(k): _jsonable(v) for k, v in value.items()}
-    if isinstance(value, list | tuple):
-        return [_jsonable(v) for v in value]
-    if isinstance(value, np.ndarray):
-        return _jsonable(value.tolist())
-    if isinstance(value, np.generic):
-        return value.item()
-    return value
