@@ -100,7 +100,7 @@ BASE_CONC_MM: dict[str, float] = {
 #: Macromolecule and lipid amplitudes (basis units, already relaxation-weighted; invented).
 MM_AMPLITUDE: dict[str, float] = {
     "MM0.94": 3.0, "MM1.22": 2.0, "MM1.43": 2.2, "MM1.70": 2.5, "MM2.05": 3.5,
-    "MM2.29": 2.0, "MM3.00": 2.5, "MM3.20": 2.0, "MM3.90": 3.0, "Lip0.9": 0.3, "Lip1.3": 0.5,
+    "MM2.29": 2.0, "MM3.00": 2.5, "MM3.20": 2.0, "MM3.90": 3.0, "FatCH3": 0.3, "FatCH2": 0.5,
 }
 #: Invented phantom solution, mM (no relaxation differences between metabolites).
 PHANTOM_CONC_MM: dict[str, float] = {
@@ -271,7 +271,7 @@ def build_scan_pair(
         for k in range(n):
             one = fid
             if corrupt is not None and k == corrupt:
-                lip = 60.0 * SCALE_K * basis.fids[basis.index("Lip1.3")] * _lineshape(t, 8, 8)
+                lip = 60.0 * SCALE_K * basis.fids[basis.index("FatCH2")] * _lineshape(t, 8, 8)
                 one = 0.55 * fid * np.exp(1j * 1.6) * np.exp(2j * np.pi * 14.0 * t) + lip
             transient = one * common * np.exp(1j * phis[k] + 2j * np.pi * shifts[k] * t)
             for c in range(spec["n_coils"]):
