@@ -29,7 +29,8 @@ Signal model of one transient of one coil (time t after the echo, NIfTI-MRS sign
   :func:`specproc.quantify.load_relaxation_times`), ``K`` an arbitrary receiver scale;
 * ``L(t) = exp(-π Γ_L t) · exp(-(π Γ_G t)² / (4 ln 2))``: Lorentzian (FWHM Γ_L) and Gaussian
   (FWHM Γ_G) broadening, different per subject;
-* ``MM`` the macromolecule components of ``basis/macromolecules.toml`` (short TE), ``W_res`` a
+* ``MM`` the macromolecule components of ``specproc/data/basis/macromolecules.toml`` (short
+  TE), ``W_res`` a
   residual water line left by imperfect water suppression;
 * ``Δf_k`` a slow frequency drift with jitter, ``φ_k`` a random phase per transient (with a
   sudden phase jump in one scan), ``φ_ec(t) = a · exp(-t / τ)`` an eddy-current phase common to

@@ -1,13 +1,15 @@
-"""Where specproc finds the data folders of its source tree (basis/, demo_spectra/).
+"""Where specproc finds its data folders.
 
-specproc is installed from a source checkout (``pip install -e .``); the metabolite
-definitions in ``basis/`` and the demo study in ``demo_spectra/`` stay readable by people at the
-top of the tree. ``SPECPROC_BASIS_DIR`` and ``SPECPROC_DEMO_DIR`` override the locations.
+The metabolite definitions (``specproc/data/basis/*.toml``) are package data, found with
+:mod:`importlib.resources`, so an installed wheel can simulate a basis anywhere. The demo study
+(``demo_spectra/``) stays at the top of the source tree, readable by people. ``SPECPROC_BASIS_DIR``
+and ``SPECPROC_DEMO_DIR`` override the locations.
 """
 
 from __future__ import annotations
 
 import os
+from importlib.resources import files
 from pathlib import Path
 
 from specproc.errors import InvalidInputError
@@ -30,8 +32,14 @@ def _folder(env: str, name: str) -> Path:
 
 
 def basis_dir() -> Path:
-    """Folder of the metabolite definition files (``basis/``)."""
-    return _folder("SPECPROC_BASIS_DIR", "basis")
+    """Folder of the metabolite definition files (package data ``specproc/data/basis/``)."""
+    override = os.environ.get("SPECPROC_BASIS_DIR")
+    path = Path(override) if override else Path(str(files("specproc") / "data" / "basis"))
+    if not path.is_dir():
+        raise InvalidInputError(
+            "folder of metabolite definitions not found (reinstall specproc, or set "
+            "SPECPROC_BASIS_DIR)", path)
+    return path
 
 
 def demo_dir() -> Path:

@@ -523,10 +523,10 @@ def simulate_basis(
     n_points : int
         Number of time-domain points.
     metabolites : iterable of str or comma-separated str, optional
-        Names from ``basis/`` (case-insensitive); default all definitions of kind
+        Names from ``specproc/data/basis/`` (case-insensitive); default all definitions of kind
         ``"metabolite"`` (water is left out unless named).
     macromolecules : bool, optional
-        Also add the components of ``basis/macromolecules.toml`` as Gaussian lines.
+        Also add the components of ``specproc/data/basis/macromolecules.toml`` as Gaussian lines.
     centre_ppm : float, optional
         Shift at the receiver centre, ppm (default 4.65).
     cache : bool, optional

@@ -1,4 +1,4 @@
-"""Checks of the metabolite definition files in ``basis/`` and of their reader.
+"""Checks of the metabolite definition files in ``specproc/data/basis/`` and of their reader.
 
 Outside sources (see tests/REFERENCES.md, section "Metabolite definitions"):
 - Govindaraju V, Young K, Maudsley AA. NMR Biomed 2000;13:129-153, table 2: the NAA and NAAG
@@ -95,7 +95,7 @@ def test_every_file_parses() -> None:
         else:
             met = load_metabolite(path)
             assert met.path == str(path)
-            # file name = short lower-case name (the layout of basis/); water.toml holds H2O
+            # file name = short lower-case name (the layout of data/basis/); water.toml holds H2O
             assert path.stem == ("water" if met.kind == "water" else met.name.lower())
 
 

@@ -1,7 +1,7 @@
-"""Metabolite spin-system definitions: the data model and the reader of ``basis/*.toml``.
+"""Metabolite spin-system definitions: the data model and the reader of the definition files.
 
-Every metabolite is described in one TOML file under ``basis/`` that people can read and check
-against the literature. The layout of such a file::
+Every metabolite is described in one TOML file under ``specproc/data/basis/`` that people can
+read and check against the literature. The layout of such a file::
 
     name = "Lac"                         # short name used in tables and the fit
     full_name = "lactate"
@@ -31,9 +31,9 @@ creatine, or the two anomers of glucose with their fractions) may give ``[[group
 coupling are simulated separately (analytically when they are singlets).
 
 Macromolecule and lipid components are Gaussian lines without couplings; they live in
-``basis/macromolecules.toml`` as a list of ``[[component]]`` tables with ``name``, ``shift_ppm``,
-``fwhm_ppm``, ``protons`` (relative weight) and ``source``; a component may have several
-``[[component.peak]]`` entries when it is one moiety with several lines.
+``specproc/data/basis/macromolecules.toml`` as a list of ``[[component]]`` tables with
+``name``, ``shift_ppm``, ``fwhm_ppm``, ``protons`` (relative weight) and ``source``; a
+component may have several ``[[component.peak]]`` entries when it is one moiety with several lines.
 """
 
 from __future__ import annotations
@@ -302,7 +302,7 @@ def _definition_files(folder: Path) -> list[Path]:
 
 
 def list_metabolites(folder: str | os.PathLike[str] | None = None) -> list[str]:
-    """Names of all metabolites defined in ``folder`` (default: the bundled ``basis/``)."""
+    """Names of all metabolites defined in ``folder`` (default: the bundled definitions)."""
     return [m.name for m in load_metabolites(folder=folder)]
 
 
