@@ -318,7 +318,7 @@ class BasisSet:
         lines = self.lines or (None,) * len(self.names)
         has = np.array([x is not None for x in lines], dtype=bool)
         present = [(i, x) for i, x in enumerate(lines) if x is not None]
-        arrays = {
+        arrays: dict[str, Any] = {
             "metadata": np.array(text),
             "fids": np.ascontiguousarray(self.fids, dtype=np.complex128),
             "has_lines": has,

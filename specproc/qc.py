@@ -726,7 +726,7 @@ def qc_report(
     region_used = None
     for region in noise_regions_ppm:
         try:
-            sd = noise_sd(p, s, region_ppm=tuple(region))
+            sd = noise_sd(p, s, region_ppm=(float(region[0]), float(region[1])))
             region_used = [float(region[0]), float(region[1])]
             break
         except InvalidInputError:

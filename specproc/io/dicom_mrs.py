@@ -190,6 +190,7 @@ def read_dicom_mrs(
         fid = (pairs[..., 0] + 1j * pairs[..., 1]).astype(np.complex64)
         if conjugate:
             fid = np.conj(fid)
+        dims: tuple[str, ...]
         if frames == 1:
             fid, dims = fid[0], ()
         else:
@@ -245,8 +246,7 @@ def read_dicom_mrs(
 
 
 def _single(values: list[Any], what: str, p: Path) -> float | None:
-    numbers = [_number(v) for v in values]
-    numbers = [n for n in numbers if n is not None]
+    numbers = [n for n in (_number(v) for v in values) if n is not None]
     if not numbers:
         return None
     if any(not np.isclose(n, numbers[0]) for n in numbers):

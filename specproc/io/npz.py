@@ -186,7 +186,7 @@ def write_npz(scan: Scan, path: str | os.PathLike[str]) -> None:
     from specproc._atomic import write_bytes
 
     target = Path(path)
-    arrays: dict[str, np.ndarray] = {
+    arrays: dict[str, Any] = {
         "fid": np.asarray(scan.data),
         "dwell_s": np.asarray(scan.dwell_s),
         "spectrometer_mhz": np.asarray(scan.spectrometer_mhz),

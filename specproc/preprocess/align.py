@@ -25,7 +25,7 @@ References
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Literal
+from typing import Any, Literal
 
 import numpy as np
 from scipy.optimize import least_squares
@@ -189,7 +189,7 @@ def register_transients(
     if data.ndim != 2:
         raise InvalidInputError(f"registration needs (transients, points) data, got {data.shape}")
     n_tr, n_pts = data.shape
-    where = {"dwell_s": dwell_s, "spectrometer_mhz": spectrometer_mhz,
+    where: dict[str, Any] = {"dwell_s": dwell_s, "spectrometer_mhz": spectrometer_mhz,
              "centre_ppm": centre_ppm, "window_ppm": window_ppm}
     filtered = window_filter(data, **where)
     n_fit = n_pts if fit_duration_s is None else int(np.clip(fit_duration_s / dwell_s, 8, n_pts))

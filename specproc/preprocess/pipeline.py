@@ -196,7 +196,7 @@ def _window(values: list[float]) -> tuple[float, float]:
     return float(values[0]), float(values[1])
 
 
-def _choice(section: dict[str, Any], key: str, name: str, valid: tuple[str, ...]) -> str:
+def _choice(section: dict[str, Any], key: str, name: str, valid: tuple[str, ...]) -> Any:
     value = section[key]
     if value not in valid:
         raise InvalidInputError(
@@ -240,7 +240,7 @@ def _combine(scan: Scan, water: Scan | None, cfg: dict[str, Any],
     scan_axis = scan.axis_of("DIM_COIL")
     water_axis = None if water is None else water.axis_of("DIM_COIL")
     if scan_axis is None:
-        if water_axis is not None:
+        if water is not None and water_axis is not None:
             raise InvalidInputError(
                 "the water reference has a DIM_COIL axis but the data have none", water.source
             )
@@ -271,7 +271,8 @@ def _combine(scan: Scan, water: Scan | None, cfg: dict[str, Any],
     if cfg["use_noise"]:
         noise_cov = estimate_noise_covariance(coil_data,
                                               tail_fraction=cfg["noise_tail_fraction"])
-    reference = coil_data if water is None else np.moveaxis(water.data, water_axis, 0)
+    reference = (coil_data if water is None or water_axis is None
+                 else np.moveaxis(water.data, water_axis, 0))
     weights = compute_coil_weights(reference, noise_cov=noise_cov, method=method,
                                    weight_points=cfg["weight_points"])
     label = "water reference" if water is not None else "data (no water reference)"

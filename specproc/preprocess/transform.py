@@ -66,9 +66,9 @@ def ppm_axis(
     n_points: int, *, dwell_s: float, spectrometer_mhz: float, centre_ppm: float
 ) -> np.ndarray:
     """Chemical shift of each spectral point (fftshift order, decreasing), ppm."""
-    return hz_to_ppm(
+    return np.asarray(hz_to_ppm(
         freq_axis_hz(n_points, dwell_s), spectrometer_mhz=spectrometer_mhz, centre_ppm=centre_ppm
-    )
+    ))
 
 
 def ppm_window_mask(ppm: np.ndarray, window_ppm: tuple[float, float]) -> np.ndarray:

@@ -210,6 +210,7 @@ def build_sequence(
     if te == 0:
         raise InvalidInputError(f"{seq} needs a positive echo time TE, got 0 ms")
 
+    events: tuple[Pulse | Delay, ...]
     if seq == "spin-echo":
         events = (
             Pulse(90.0, 90.0, keep=+1),

@@ -232,7 +232,7 @@ def _propagate(
 ) -> tuple[np.ndarray, np.ndarray]:
     """Frequencies (Hz) and amplitudes (unnormalised: Tr[ρ F+_weighted]) of one product space."""
     ops = build_operators(spins)
-    eig = diagonalise(build_hamiltonian(ops, offsets_hz, j_hz), ops.m_total)
+    eig = diagonalise(build_hamiltonian(ops, list(offsets_hz), j_hz), ops.m_total)
     order = ops.coherence_order()
     rho = np.diag(np.sum(ops.iz, axis=0)).astype(np.complex128)  # F_z
     gaps = eig.energies[:, None] - eig.energies[None, :]
@@ -264,11 +264,11 @@ def _propagate(
     freqs = []
     amps = []
     twice_m = sorted(eig.blocks)
-    for key in twice_m:
-        upper = key + 2  # M + 1
+    for block in twice_m:
+        upper = block + 2  # M + 1
         if upper not in eig.blocks:
             continue
-        a_idx = eig.blocks[key]
+        a_idx = eig.blocks[block]
         b_idx = eig.blocks[upper]
         amp = r[np.ix_(a_idx, b_idx)] * d[np.ix_(b_idx, a_idx)].T
         freq = (eig.energies[a_idx][:, None] - eig.energies[b_idx][None, :]) / (2 * np.pi)
@@ -333,8 +333,8 @@ def simulate_spin_system(
     n = len(groups)
     j = np.zeros((n, n))
     for c in couplings:
-        a, b = labels.index(c.a), labels.index(c.b)
-        j[a, b] = j[b, a] = j[a, b] + c.j_hz
+        ia, ib = labels.index(c.a), labels.index(c.b)
+        j[ia, ib] = j[ib, ia] = j[ia, ib] + c.j_hz
     weights = np.array([g.fraction for g in groups], dtype=float)
     receiver = _receiver(sequence)
     if not np.any(j):
