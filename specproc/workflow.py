@@ -352,11 +352,12 @@ def process_scan(
     InvalidInputError
         For unreadable inputs, bad settings, a mismatched water reference or tissue fractions.
     """
-    from specproc.fit import fit_spectrum, plot_fit
+    from specproc.fit import fit_spectrum
     from specproc.preprocess.pipeline import run_pipeline
     from specproc.qc import QCThresholds, qc_from_scan
     from specproc.quantify import quantify, validate_tissue_fractions
     from specproc.report.figures import figure_pdf_bytes, figure_png_bytes
+    from specproc.report.fit_figure import plot_fit
     from specproc.report.html import render_report
     from specproc.report.tables import config_to_toml, results_rows, rows_to_tsv
 
@@ -451,7 +452,7 @@ def process_scan(
     write_bytes(files["figure_pdf"], figure_pdf_bytes(fig))
     figures = [("Linear-combination fit: data, fit, baseline, residual and members", png)]
     try:
-        from specproc.preprocess.figure import render_preprocess_figure
+        from specproc.report.preprocess_figure import render_preprocess_figure
 
         pre_png = render_preprocess_figure(pre, title=f"{safe}: preprocessing")
         write_bytes(files["preprocess_png"], pre_png)

@@ -16,15 +16,11 @@ import pytest
 from specproc.basis import BasisSet
 from specproc.data import Scan
 from specproc.errors import InvalidInputError
-from specproc.fit import (
-    fit_spectrum,
-    plot_fit,
-    result_to_dict,
-    results_table,
-    save_figure,
-    settings_from_config,
-    write_results_tsv,
-)
+from specproc.fit import fit_spectrum, result_to_dict, results_table, settings_from_config
+from specproc.report import palette
+from specproc.report.figures import figure_png_bytes
+from specproc.report.fit_figure import plot_fit, shown_members
+from specproc.report.fit_text import write_results_tsv
 
 MHZ = 123.2
 CENTRE = 4.65
@@ -96,14 +92,26 @@ def test_dict_is_json_and_holds_every_field(result):
     assert "NAA" in result.to_text()
 
 
-def test_figure_renders_png(result, tmp_path):
-    fig = plot_fit(result, title="synthetic")
-    axes = fig.get_axes()
-    left, right = axes[-1].get_xlim()
+def test_figure_layout_colours_and_png(result):
+    fig = plot_fit(result, title="synthetic $x$")
+    _spectrum, residual, members = fig.get_axes()
+    left, right = members.get_xlim()
     assert left > right  # ppm decreases to the right
-    path = tmp_path / "fit.png"
-    save_figure(fig, path)
-    assert path.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    # the residual has its own panel, nothing else is drawn there but the zero line
+    assert len(residual.get_lines()) == 2
+    shown, hidden = shown_members(result)
+    assert sorted(shown + hidden) == list(range(len(result.names)))
+    # one line per drawn member in its fixed colour, plus the scale bar
+    colours = [line.get_color() for line in members.get_lines()]
+    assert colours[:len(shown)] == [palette.member_colour(result.names[i]) for i in shown]
+    assert len(colours) == len(shown) + 1
+    assert figure_png_bytes(fig)[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_member_colour_is_fixed_per_name():
+    assert palette.member_colour("NAA") == palette.member_colour("naa")
+    assert palette.member_colour("Xyz") == palette.member_colour("Xyz")
+    assert palette.member_colour("NAA") != palette.member_colour("Cr")
 
 
 def test_negative_signal_component_is_flagged_at_zero_bound():

@@ -138,7 +138,7 @@ def test_html_parses_and_contains_every_results_row(page: tuple[str, _Collector]
                 shown = float(row[2])
             except ValueError:
                 continue
-            assert shown == pytest.approx(amp[row[0]], rel=1e-3)
+            assert shown == pytest.approx(amp[row[0]], rel=5e-3)  # 3 significant figures
 
 
 def test_html_embeds_every_figure(page: tuple[str, _Collector], report_dir: Path) -> None:

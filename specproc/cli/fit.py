@@ -127,9 +127,11 @@ def fit_command(scan_file: Path, water_file: Path | None, basis_choice: str | No
     from specproc._atomic import write_bytes, write_text
     from specproc._json import dumps
     from specproc.config import load_config
-    from specproc.fit import fit_spectrum, plot_fit, result_to_dict
-    from specproc.fit.result import figure_png, results_tsv_text
+    from specproc.fit import fit_spectrum, result_to_dict
     from specproc.io import load
+    from specproc.report.figures import figure_png_bytes
+    from specproc.report.fit_figure import plot_fit
+    from specproc.report.fit_text import results_tsv_text
 
     if out_dir.exists() and not out_dir.is_dir():
         raise InvalidInputError("the output must be a folder", out_dir)
@@ -171,7 +173,7 @@ def fit_command(scan_file: Path, water_file: Path | None, basis_choice: str | No
     }
     # render all three before writing any
     json_text = dumps(document, indent=1, allow_nan=False)
-    png = figure_png(plot_fit(result, title=f"{scan_file.name}: linear-combination fit"))
+    png = figure_png_bytes(plot_fit(result, title=f"{scan_file.name}: linear-combination fit"))
     tsv_text = results_tsv_text(result)
     out_dir.mkdir(parents=True, exist_ok=True)
     write_text(out_dir / "results.tsv", tsv_text)
@@ -179,8 +181,10 @@ def fit_command(scan_file: Path, water_file: Path | None, basis_choice: str | No
     write_bytes(out_dir / "fit.png", png)
     for note in notes:
         click.echo(f"specproc: note: {note}", err=True)
+    from specproc.report.messages import fit_flag_sentence
+
     for flag in result.flags:
-        click.echo(f"specproc: warning: {flag}", err=True)
+        click.echo(f"specproc: warning: {fit_flag_sentence(flag, result)}", err=True)
     click.echo(result.to_text().rstrip())
     for name in ("results.tsv", "fit.json", "fit.png"):
         click.echo(f"wrote {out_dir / name}")

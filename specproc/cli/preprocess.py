@@ -57,8 +57,8 @@ def preprocess(scan_file: Path, water_file: Path | None, config_file: Path | Non
     """Coil-combine, align, average and correct SCAN into one FID (NIfTI-MRS) plus a figure."""
     from specproc._atomic import write_bytes
     from specproc.io import load, save
-    from specproc.preprocess.figure import render_preprocess_figure
     from specproc.preprocess.pipeline import run_pipeline
+    from specproc.report.preprocess_figure import render_preprocess_figure
 
     paths = output_paths(out)
     config = load_config(config_file)

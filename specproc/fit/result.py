@@ -1,31 +1,19 @@
-"""The fit result and its renderings (text, plain dict for JSON, TSV table, figure).
+"""The fit result, its table of rows and its plain dict for JSON.
 
-Computing lives in :mod:`specproc.fit.fitter`; this module only presents a :class:`FitResult`.
+Computing lives in :mod:`specproc.fit.fitter`; the text, TSV and figure renderings of a
+:class:`FitResult` live in :mod:`specproc.report` (``fit_text``, ``fit_figure``).
 """
 
 from __future__ import annotations
 
-import io
-import os
 from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 
-from specproc._atomic import write_bytes, write_text
 from specproc._json import to_jsonable
 
-__all__ = [
-    "FitResult",
-    "figure_png",
-    "plot_fit",
-    "result_to_dict",
-    "result_to_text",
-    "results_table",
-    "results_tsv_text",
-    "save_figure",
-    "write_results_tsv",
-]
+__all__ = ["FitResult", "result_to_dict", "results_table"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -180,7 +168,9 @@ class FitResult:
         raise KeyError(name)
 
     def to_text(self) -> str:
-        """Human-readable summary (see :func:`result_to_text`)."""
+        """Human-readable summary (see :func:`specproc.report.fit_text.result_to_text`)."""
+        from specproc.report.fit_text import result_to_text
+
         return result_to_text(self)
 
     def to_dict(self) -> dict[str, Any]:
@@ -235,57 +225,6 @@ def results_table(result: FitResult) -> list[dict[str, Any]]:
     return rows
 
 
-def _fmt(value: Any) -> str:
-    if isinstance(value, float):
-        return "nan" if not np.isfinite(value) else f"{value:.6g}"
-    return str(value)
-
-
-def results_tsv_text(result: FitResult) -> str:
-    """:func:`results_table` as tab-separated values (header line first)."""
-    rows = results_table(result)
-    columns = ["metabolite", "kind", "amplitude", "crlb_sd", "crlb_percent", "ratio_tcr", "flag"]
-    lines = ["\t".join(columns)]
-    lines += ["\t".join(_fmt(row[c]) for c in columns) for row in rows]
-    return "\n".join(lines) + "\n"
-
-
-def write_results_tsv(result: FitResult, path: str | os.PathLike[str]) -> None:
-    """Write :func:`results_tsv_text` to ``path`` (atomic write)."""
-    write_text(path, results_tsv_text(result))
-
-
-def result_to_text(result: FitResult) -> str:
-    """Plain-text report: a table of amplitudes and bounds, then the fit parameters."""
-    rows = results_table(result)
-    out = [
-        f"Linear-combination fit over {result.fit_range_ppm[0]:g}-{result.fit_range_ppm[1]:g} ppm"
-        f" ({'converged' if result.success else 'NOT converged'}: {result.message})",
-        f"{'member':<12}{'amplitude':>13}{'CRLB SD':>13}{'CRLB %':>9}{'/tCr':>9}  flag",
-    ]
-    for row in rows:
-        pct = row["crlb_percent"]
-        ratio = row["ratio_tcr"]
-        out.append(
-            f"{row['metabolite']:<12}{row['amplitude']:>13.5g}{row['crlb_sd']:>13.4g}"
-            f"{(f'{pct:.1f}' if np.isfinite(pct) else 'nan'):>9}"
-            f"{(f'{ratio:.3f}' if np.isfinite(ratio) else '-'):>9}"
-            f"  {row['flag']}"
-        )
-    out.append(
-        f"phase0 {result.phase0_deg:.2f} deg, phase1 {result.phase1_deg_per_ppm:.3f} deg/ppm, "
-        f"Gaussian FWHM {result.gauss_fwhm_hz:.2f} Hz"
-    )
-    out.append(
-        f"noise SD {result.noise_sd:.4g}, chi-square {result.chi_square:.1f} on {result.dof} "
-        f"dof (reduced {result.reduced_chi_square:.3f}), {result.nfev} evaluations, "
-        f"{result.elapsed_s:.3f} s"
-    )
-    if result.flags:
-        out.append("flags: " + ", ".join(result.flags))
-    return "\n".join(out) + "\n"
-
-
 def result_to_dict(result: FitResult, *, spectra: bool = True) -> dict[str, Any]:
     """Every field as plain JSON values (NaN becomes None; complex arrays ``{"re", "im"}``).
 
@@ -302,71 +241,3 @@ def result_to_dict(result: FitResult, *, spectra: bool = True) -> dict[str, Any]
             continue
         out[name] = getattr(result, name)
     return to_jsonable(out)
-
-
-# ---------------------------------------------------------------------- figure
-def plot_fit(result: FitResult, *, title: str | None = None, max_members: int = 30) -> Any:
-    """Figure of the fit: data, fit, baseline, residual and each member's contribution.
-
-    Two panels sharing the ppm axis (decreasing to the right): the top shows the real
-    (absorption) parts of the data, the fit and the baseline, with the residual offset above;
-    the bottom stacks the contribution of each member with its name. Uses matplotlib's Agg
-    canvas (no display needed).
-
-    Returns
-    -------
-    matplotlib.figure.Figure
-    """
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-
-    ppm = result.ppm
-    data = result.data.real
-    fit = result.fit.real
-    base = result.baseline.real
-    resid = result.residual.real
-    contrib = result.contributions.real
-    order = np.argsort(-result.amplitudes)[:max_members]
-    # fixed margins: a layout engine would cost more than drawing the figure (cohort runs)
-    fig = Figure(figsize=(8.5, 9.0))
-    FigureCanvasAgg(fig)
-    top, bottom = fig.subplots(
-        2, 1, sharex=True, height_ratios=[1.3, 1.7],
-        gridspec_kw={"left": 0.09, "right": 0.98, "top": 0.95, "bottom": 0.06, "hspace": 0.06},
-    )
-    span = float(np.ptp(data)) or 1.0
-    offset = float(data.max()) + 0.15 * span - float(resid.min())
-    top.plot(ppm, data, color="0.25", lw=0.9, label="data")
-    top.plot(ppm, fit, color="#c0392b", lw=1.1, label="fit")
-    top.plot(ppm, base, color="#2e86c1", lw=1.0, ls="--", label="baseline")
-    top.plot(ppm, resid + offset, color="#7d8c2a", lw=0.8, label="residual (offset)")
-    top.axhline(offset, color="0.8", lw=0.5)
-    top.legend(loc="center right", fontsize=8, frameon=False)
-    top.set_ylabel("real part (a.u.)")
-    if title:
-        top.set_title(title, fontsize=10)
-    step = 0.0
-    if order.size:
-        step = 1.1 * float(max(np.ptp(contrib[i]) for i in order) or 1.0)
-    for k, i in enumerate(order):
-        y = contrib[i] - k * step
-        bottom.plot(ppm, y, lw=0.9, color=f"C{k % 10}")
-        bottom.text(float(ppm.min()), -k * step, f"{result.names[i]} ", fontsize=7,
-                    va="bottom", ha="right", color=f"C{k % 10}")
-    bottom.set_yticks([])
-    bottom.set_ylabel("member contributions")
-    bottom.set_xlabel("chemical shift (ppm)")
-    bottom.set_xlim(float(ppm.max()), float(ppm.min()))
-    return fig
-
-
-def figure_png(fig: Any, *, dpi: int = 110) -> bytes:
-    """A matplotlib figure rendered to PNG bytes."""
-    buffer = io.BytesIO()
-    fig.savefig(buffer, format="png", dpi=dpi)
-    return buffer.getvalue()
-
-
-def save_figure(fig: Any, path: str | os.PathLike[str], *, dpi: int = 110) -> None:
-    """Save a matplotlib figure as PNG through an atomic write."""
-    write_bytes(path, figure_png(fig, dpi=dpi))

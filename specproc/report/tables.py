@@ -25,6 +25,7 @@ __all__ = [
     "qc_rows",
     "results_rows",
     "rows_to_tsv",
+    "sig",
 ]
 
 #: Columns of ``results.tsv`` (one row per scan × fitted member or combined sum).
@@ -49,13 +50,36 @@ RESULT_COLUMNS: tuple[str, ...] = (
 )
 
 
-def format_number(value: Any, digits: int = 4) -> str:
-    """Format a value for a table: ``g`` format for floats, ``"nan"`` for non-finite ones."""
+def sig(value: Any, digits: int = 3) -> str:
+    """A number with ``digits`` significant figures, as shown to people.
+
+    Fixed notation from 0.001 to below 10⁶ (``0.0123``, ``8.05``, ``12300``), else an exponent
+    (``1.2e-05``); ``—`` for a missing or non-finite value.
+    """
+    if value is None or isinstance(value, bool):
+        return "—"
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        return str(value)
+    if not math.isfinite(v):
+        return "—"
+    if v == 0:
+        return "0"
+    magnitude = math.floor(math.log10(abs(v)))
+    if -3 <= magnitude < 6:
+        decimals = digits - 1 - magnitude
+        rounded = round(v, decimals)
+        return f"{rounded:.{max(0, decimals)}f}"
+    return f"{v:.{digits - 1}e}"
+
+
+def format_number(value: Any, digits: int = 3) -> str:
+    """A table cell: :func:`sig` for floats, ``yes``/``no`` for booleans, text as it is."""
     if isinstance(value, bool):
         return "yes" if value else "no"
     if isinstance(value, float | np.floating):
-        v = float(value)
-        return "nan" if not math.isfinite(v) else f"{v:.{digits}g}"
+        return sig(value, digits)
     if value is None:
         return ""
     return str(value)

@@ -18,6 +18,7 @@ import numpy as np
 from specproc._atomic import write_bytes
 from specproc.preprocess.pipeline import PreprocessResult
 from specproc.preprocess.transform import ppm_axis, to_spectrum
+from specproc.report import palette
 
 __all__ = ["render_preprocess_figure", "save_preprocess_figure"]
 
@@ -97,21 +98,21 @@ def render_preprocess_figure(result: PreprocessResult, *, title: str | None = No
         if values is None or not np.any(np.isfinite(values)):
             ax.text(0.5, 0.5, "not estimated", transform=ax.transAxes, ha="center")
             continue
-        ax.plot(index, values, "o-", ms=3, lw=0.8, color="tab:blue", label="kept")
+        ax.plot(index, values, "o-", ms=3, lw=0.8, color=palette.FIT, label="kept")
         if kept is not None and not np.all(kept):
-            ax.plot(index[~kept], values[~kept], "x", ms=8, color="tab:red", label="rejected")
+            ax.plot(index[~kept], values[~kept], "x", ms=8, color="#c1272d", label="rejected")
             ax.legend(fontsize=8)
 
     ppm, final = _spectra(np.asarray(scan.data)[None, :], scan)
     show = (ppm >= _PPM_RANGE[0]) & (ppm <= _PPM_RANGE[1])
-    ax_final.plot(ppm[show], final[0].real[show], color="k", lw=0.9)
+    ax_final.plot(ppm[show], final[0].real[show], color=palette.FIT, lw=0.9)
     ax_final.set_title("averaged, corrected spectrum (real part)", fontsize=10)
     for ax in (ax_before, ax_after, ax_final):
         ax.set_xlim(_PPM_RANGE[1], _PPM_RANGE[0])  # ppm decreases to the right
         ax.set_xlabel("chemical shift (ppm)")
         ax.set_yticks([])
     if title:
-        fig.suptitle(title, fontsize=11)
+        fig.suptitle(title.replace("$", r"\$"), fontsize=11)
     buffer = io.BytesIO()
     fig.savefig(buffer, format="png", dpi=100)
     return buffer.getvalue()
