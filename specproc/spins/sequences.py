@@ -46,6 +46,7 @@ __all__ = [
     "Delay",
     "Pulse",
     "Sequence",
+    "ShapedPulse",
     "build_sequence",
     "normalise_sequence_name",
 ]
@@ -102,6 +103,39 @@ class Delay:
 
 
 @dataclass(frozen=True)
+class ShapedPulse:
+    """A frequency-selective pulse of finite length, simulated by time slicing.
+
+    During the pulse the spins evolve under the full Hamiltonian (shifts and J couplings) plus
+    the RF term ``ω1(t) (cos(ω_rf t + φ) Fx + sin(ω_rf t + φ) Fy)`` in the receiver frame, with
+    ``ω1`` piecewise constant over ``len(shape)`` slices (:mod:`specproc.spins.simulate`).
+
+    Attributes
+    ----------
+    duration_s : float
+        Length of the pulse, s (it occupies that much of the sequence's time).
+    flip_deg : float
+        Flip angle on resonance, degrees (sets the scale of ``ω1``).
+    offset_hz : float
+        Carrier frequency relative to the receiver centre, Hz, in the NIfTI-MRS sense (a spin
+        at shift δ is on resonance when ``offset_hz = (δ - centre_ppm) · MHz``).
+    shape : tuple of float
+        Relative RF amplitude of each slice (any scale; real).
+    phase_deg : float
+        RF phase at the start of the pulse, degrees.
+    keep : int or None
+        Coherence order kept after the pulse (None keeps all), as for :class:`Pulse`.
+    """
+
+    duration_s: float
+    flip_deg: float
+    offset_hz: float
+    shape: tuple[float, ...]
+    phase_deg: float = 0.0
+    keep: int | None = None
+
+
+@dataclass(frozen=True)
 class Sequence:
     """A sequence: events in time order plus its name and timings.
 
@@ -109,7 +143,7 @@ class Sequence:
     ----------
     name : str
         One of :data:`SEQUENCES`.
-    events : tuple of Pulse or Delay
+    events : tuple of Pulse, Delay or ShapedPulse
         Events from excitation to the echo top (acquisition starts after the last one).
     timings_s : mapping of str to float
         The timings that define it (``te_s``, ``te1_s``, ``te2_s``, ``tm_s``, ``delays_s``
@@ -117,12 +151,13 @@ class Sequence:
     """
 
     name: str
-    events: tuple[Pulse | Delay, ...]
+    events: tuple[Pulse | Delay | ShapedPulse, ...]
     timings_s: Mapping[str, float] = field(default_factory=dict)
 
     def total_delay_s(self) -> float:
-        """Time from the first pulse to the echo top, s."""
-        return float(sum(e.duration_s for e in self.events if isinstance(e, Delay)))
+        """Time from the first pulse to the echo top (shaped pulses included), s."""
+        return float(sum(e.duration_s for e in self.events
+                         if isinstance(e, Delay | ShapedPulse)))
 
 
 def normalise_sequence_name(name: str) -> str:
