@@ -270,14 +270,14 @@ def _open_image(path: str | os.PathLike[str], what: str) -> Any:
 
     p = require_file(path)
     with reader_boundary(p, "NIfTI"):
-        img = nib.load(str(p))
+        img: Any = nib.load(str(p))
         shape = tuple(int(s) for s in img.shape)
         if len(shape) == 4 and shape[3] == 1:
             shape = shape[:3]
         if len(shape) != 3 or min(shape) < 1:
             raise InvalidInputError(f"the {what} must be a 3-D image, got shape "
                                     f"{tuple(img.shape)}", p)
-        affine = np.asarray(img.affine, float)
+        affine = np.asarray(img.affine, dtype=np.float64)
         if not np.all(np.isfinite(affine)) or abs(np.linalg.det(affine[:3, :3])) < 1e-9:
             raise InvalidInputError(f"the {what}'s affine is degenerate", p)
     return img

@@ -351,7 +351,7 @@ def read_voxel_geometry(path: str | os.PathLike[str]) -> VoxelGeometry:
         import nibabel as nib
 
         with reader_boundary(p, "NIfTI"):
-            img = nib.load(str(p))
+            img: Any = nib.load(str(p))
             if any(int(s) != 1 for s in img.shape[:3]):
                 raise InvalidInputError(
                     f"more than one voxel (spatial size {img.shape[:3]}); a single voxel is "
