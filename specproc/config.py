@@ -10,7 +10,8 @@ an integer default needs an integer; a float default accepts an integer or a flo
 float); a string needs a string; a table needs a table. A default list of two numbers is a range
 and needs two numbers; any other non-empty default list accepts a list of any length whose items
 follow the rules of the default's items (the last default item for the extra ones); an empty
-default list accepts any list of plain values.
+default list accepts any list of plain values. An empty default table (``[relaxation]``) accepts
+any table; its keys are checked where it is used.
 """
 
 from __future__ import annotations
@@ -83,6 +84,8 @@ def _check_value(key: str, value: Any, default: Any, where: str | None) -> Any:
     if isinstance(default, dict):
         if not isinstance(value, dict):
             raise bad("a table")
+        if not default:  # a free-form table, checked by its consumer
+            return copy.deepcopy(value)
         return _merge(default, value, key, where)
     return value
 

@@ -483,6 +483,16 @@ class QCThresholds:
             out[k] = number
         return cls(**out)
 
+    @classmethod
+    def from_config(cls, table: Mapping[str, Any] | None) -> QCThresholds:
+        """Thresholds from the ``[qc]`` table of the configuration, where 0 switches a rule off.
+
+        Keys that are not thresholds (``crlb_checked``) are ignored here.
+        """
+        known = {f.name for f in fields(cls)}
+        values = {k: (None if v == 0 else v) for k, v in dict(table or {}).items() if k in known}
+        return cls.from_mapping(values)
+
     def to_dict(self) -> dict[str, float | None]:
         """Plain dict."""
         return asdict(self)

@@ -107,9 +107,30 @@ def test_cli_config_show_and_check(tmp_path):
     assert len(lines) == 1 and lines[0].startswith("specproc: error: ")
 
 
+def test_qc_and_relaxation_tables_are_accepted(tmp_path):
+    path = write(tmp_path, """
+[qc]
+snr_min = 5
+crlb_percent_max = 30.0
+drift_range_hz_max = 0
+[relaxation.metabolite.NAA]
+t2_s = 0.25
+source = "this study"
+""")
+    result = CliRunner().invoke(main, ["config", "check", str(path)])
+    assert result.exit_code == 0, result.output
+    from specproc.qc import QCThresholds
+
+    th = QCThresholds.from_config(load_config(path)["qc"])
+    assert (th.snr_min, th.crlb_percent_max, th.drift_range_hz_max) == (5.0, 30.0, None)
+    assert QCThresholds.from_config(default_config()["qc"]) == QCThresholds()
+
+
 @pytest.mark.parametrize("text, message", [
     ('[preprocess.phasing]\nmethod = "bogus"\n', "preprocess.phasing.method"),
     ("[fit]\nbaseline_knot_ppm = -1.0\n", "baseline_knot_ppm"),
+    ("[qc]\nsnr_min = -3.0\n", "snr_min"),
+    ("[relaxation.metabolite.NAA]\nt2_s = -1.0\n", "NAA"),
 ])
 def test_cli_config_check_rejects_what_a_run_would_reject(tmp_path, text, message):
     # "valid" must mean that preprocess and fit accept the file: the same checks they make

@@ -35,11 +35,16 @@ def check(file: Path) -> None:
     from specproc.errors import InvalidInputError
     from specproc.fit import settings_from_config
     from specproc.preprocess.pipeline import _check_choices
+    from specproc.qc import QCThresholds
+    from specproc.quantify import load_relaxation_times
 
     config = load_config(file)
     try:  # the checks the commands make before any work, so that "valid" means it will run
         _check_choices(config["preprocess"])
         settings_from_config(config)
+        QCThresholds.from_config(config["qc"])
+        if config["relaxation"]:
+            load_relaxation_times(3.0, overrides=config["relaxation"])
     except InvalidInputError as exc:
         raise exc.with_path(file) from None
     click.echo(f"{file}: configuration is valid")
