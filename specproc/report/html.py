@@ -1,18 +1,19 @@
-"""The self-contained HTML report of one scan.
+"""HTML pages: the scan report, through Jinja2 templates with autoescaping.
 
-One file, no external assets: the style sheet is inline, figures are embedded as base64 PNG
-``data:`` URIs, and there is no script. Links point only to the files written beside the report
-(``fit.json``, ``config.toml``, ``results.tsv``, ``fit.pdf``) and to the methods document of the
-source tree.
+Every page is one self-contained file: the style sheet is inline, figures are embedded as
+base64 PNG ``data:`` URIs, and there is no script. Links point only to the files written beside
+the page and to the methods document of the source tree.
 
-Safety: every string that comes from a data file (protocol names, header values, file names,
-free text) and every other value is escaped with :func:`html.escape` (``quote=True``) before it
-is put into the page; the only markup is the page's own.
+Safety: the templates (``specproc/report/templates``) are rendered by a Jinja2 environment
+with autoescaping on for every template, so every string that comes from a data file (protocol
+names, header values, file names, free text) is escaped where it is put into the page; the
+Python side hands over plain text and numbers already formatted, never markup.
 """
 
 from __future__ import annotations
 
 import datetime as _dt
+import functools
 import html
 import math
 import os
@@ -22,107 +23,59 @@ from typing import Any
 
 from specproc._atomic import write_text
 from specproc.report.figures import png_data_uri
+from specproc.report.messages import (
+    crlb_text,
+    fit_flag_sentence,
+    fit_status_sentence,
+    member_label,
+    qc_flag_sentence,
+)
+from specproc.report.palette import member_colour
 from specproc.report.tables import (
+    CONCENTRATION_KINDS,
     format_number,
     methods_rows,
     processing_rows,
     qc_rows,
+    sig,
 )
 
-__all__ = ["CAUTION_TEXT", "escape", "html_table", "methods_doc_uri", "render_report",
-           "write_report"]
+__all__ = ["CAUTION_TEXT", "environment", "escape", "methods_doc_uri", "render_page",
+           "render_report", "write_report"]
 
-#: The caution shown at the top of every report.
+#: The caution shown at the top and the foot of every page.
 CAUTION_TEXT = (
     "For research use only. specproc is not a medical device, and nothing in this report is a "
     "diagnosis. The numbers depend on the assumptions listed below; interpreting them is for "
     "qualified professionals, within the rules that apply where you work."
 )
 
-_STYLE = """
-:root { --ink:#1d2a33; --muted:#5b6b75; --line:#d5dde2; --band:#24566b; --soft:#f3f6f8;
-        --warn:#8a5a00; --warnbg:#fff4dc; --bad:#a3312a; --good:#2f6b3a; }
-* { box-sizing: border-box; }
-body { margin:0; font-family: "DejaVu Sans", "Segoe UI", Helvetica, Arial, sans-serif;
-       color:var(--ink); background:#ffffff; font-size:14px; line-height:1.45; }
-header.band { background:var(--band); color:#fff; padding:18px 28px 14px; }
-header.band h1 { margin:0 0 4px; font-size:21px; font-weight:600; }
-header.band p { margin:0; font-size:12.5px; opacity:.9; }
-main { padding:14px 28px 40px; max-width:1150px; }
-section { margin-top:22px; }
-h2 { font-size:16px; border-bottom:2px solid var(--band); padding-bottom:3px; margin:0 0 8px; }
-.caution { background:var(--warnbg); border-left:5px solid var(--warn); padding:9px 14px;
-           color:#4a3200; margin-top:14px; }
-.chips span { display:inline-block; padding:3px 10px; border-radius:12px; margin:2px 6px 2px 0;
-              font-size:12.5px; background:var(--soft); border:1px solid var(--line); }
-.chips span.ok { color:var(--good); border-color:#9cc3a3; }
-.chips span.flag { color:var(--bad); border-color:#dba39e; }
-table { border-collapse:collapse; width:100%; font-size:12.5px; }
-th, td { border-bottom:1px solid var(--line); padding:4px 7px; text-align:left;
-         vertical-align:top; }
-th { background:var(--soft); font-weight:600; }
-td.num { text-align:right; font-variant-numeric: tabular-nums; white-space:nowrap; }
-tr.sum td { font-weight:600; background:#f8fbfc; }
-td.flag { color:var(--bad); }
-td.nowrap { white-space:nowrap; }
-figure { margin:10px 0 18px; }
-figure img { max-width:100%; border:1px solid var(--line); }
-figcaption { color:var(--muted); font-size:12.5px; }
-code, pre { font-family: "DejaVu Sans Mono", Consolas, monospace; font-size:12px; }
-pre { background:var(--soft); padding:8px 10px; white-space:pre-wrap; word-break:break-word; }
-.muted { color:var(--muted); }
-footer { margin-top:30px; color:var(--muted); font-size:12px; }
-"""
+
+@functools.cache
+def environment() -> Any:
+    """The Jinja2 environment of the report templates (autoescaping on for every template)."""
+    import jinja2
+
+    return jinja2.Environment(
+        loader=jinja2.PackageLoader("specproc.report", "templates"),
+        autoescape=True,
+        undefined=jinja2.StrictUndefined,
+        trim_blocks=True,
+        lstrip_blocks=True,
+    )
+
+
+def render_page(template: str, **context: Any) -> str:
+    """Render a template of ``specproc/report/templates`` with ``context`` (escaped)."""
+    context.setdefault("caution", CAUTION_TEXT)
+    return environment().get_template(template).render(**context)
 
 
 def escape(value: Any) -> str:
-    """HTML-escaped text of any value (``&``, ``<``, ``>``, ``"`` and ``'``)."""
+    """HTML-escaped text of any value (floats with three significant figures)."""
     if isinstance(value, float):
         value = format_number(value)
     return html.escape("" if value is None else str(value), quote=True)
-
-
-def html_table(
-    columns: Sequence[tuple[str, str]],
-    rows: Sequence[Mapping[str, Any]],
-    *,
-    numeric: Sequence[str] = (),
-    row_class: Any = None,
-    cell_class: Mapping[str, Any] | None = None,
-) -> str:
-    """An HTML table; every header and cell is escaped.
-
-    Parameters
-    ----------
-    columns : sequence of (key, label)
-        Row keys and column headings.
-    rows : sequence of mapping
-        Cell values by key (floats formatted by :func:`format_number`).
-    numeric : sequence of str
-        Keys of right-aligned numeric columns.
-    row_class : callable, optional
-        ``row -> CSS class or ""`` (class names are ours, not data).
-    cell_class : mapping, optional
-        ``key -> callable(row) -> CSS class or ""``.
-    """
-    head = "".join(f"<th>{escape(label)}</th>" for _, label in columns)
-    body = []
-    for row in rows:
-        cls = row_class(row) if row_class else ""
-        cells = []
-        for key, _ in columns:
-            classes = []
-            if key in numeric:
-                classes.append("num")
-            if cell_class and key in cell_class:
-                extra = cell_class[key](row)
-                if extra:
-                    classes.append(extra)
-            attr = f' class="{escape(" ".join(classes))}"' if classes else ""
-            cells.append(f"<td{attr}>{escape(row.get(key))}</td>")
-        attr = f' class="{escape(cls)}"' if cls else ""
-        body.append(f"<tr{attr}>{''.join(cells)}</tr>")
-    return f"<table><thead><tr>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>"
 
 
 def methods_doc_uri() -> str | None:
@@ -133,39 +86,73 @@ def methods_doc_uri() -> str | None:
     return path.as_uri() if path.is_file() else None
 
 
-def _pm(value: float, sd: float, digits: int = 3) -> str:
+def _pm(value: float, sd: float) -> str:
+    """``"8.05 ± 0.41"``: the value with three significant figures, its SD with two."""
     if not math.isfinite(value):
-        return "nan"
-    if math.isfinite(sd):
-        return f"{value:.{digits}g} ± {sd:.2g}"
-    return f"{value:.{digits}g}"
+        return "—"
+    if math.isfinite(sd) and sd > 1e-9 * abs(value):
+        return f"{sig(value)} ± {sig(sd, 2)}"
+    return sig(value)
 
 
-def _results_section(rows: Sequence[Mapping[str, Any]], water_referenced: bool) -> str:
-    table_rows = []
-    for r in rows:
-        mm = r["kind"] == "macromolecule"  # no meaningful molar unit for MM components
-        table_rows.append({
-            "metabolite": r["metabolite"],
-            "kind": r["kind"],
-            "amplitude": r["amplitude"],
-            "crlb": r["crlb_percent"],
-            "ratio": _pm(r["ratio_tcr"], r["ratio_tcr_sd"]),
-            "molar": "n/a" if mm else _pm(r["conc_molar_mm"], r["conc_molar_sd_mm"]),
-            "molal": "n/a" if mm else _pm(r["conc_molal_mmol_kg"],
-                                          r["conc_molal_sd_mmol_kg"]),
-            "flag": r["fit_flag"],
+_SUM_ORDER = ("tNAA", "tCr", "tCho", "Glx")
+
+
+def result_display_rows(rows: Sequence[Mapping[str, Any]], crlb_limit: float | None
+                        ) -> list[dict[str, Any]]:
+    """The results rows as shown: sums first, then metabolites, then macromolecules.
+
+    Every value is text (three significant figures, SD two, ``—`` where undefined); a row whose
+    CRLB is undefined or above ``crlb_limit`` is marked unreliable.
+    """
+    def order(row: Mapping[str, Any]) -> tuple[int, int]:
+        kind = row["kind"]
+        if kind == "sum":
+            name = str(row["metabolite"])
+            return 0, _SUM_ORDER.index(name) if name in _SUM_ORDER else len(_SUM_ORDER)
+        return (1 if kind in CONCENTRATION_KINDS else 2), 0
+
+    out = []
+    for r in sorted(rows, key=order):
+        name = str(r["metabolite"])
+        kind = str(r["kind"])
+        pct = float(r["crlb_percent"])
+        zero = "zero_bound" in str(r.get("fit_flag") or "")
+        if zero:
+            reliability, mark = "not detected", "mark-bad"
+        elif not math.isfinite(pct):
+            reliability, mark = "bound undefined", "mark-bad"
+        elif crlb_limit is not None and pct > crlb_limit:
+            reliability, mark = f"CRLB above {crlb_limit:g} %", "mark-bad"
+        else:
+            reliability, mark = "reliable", "mark-ok"
+        classes = []
+        if kind == "sum":
+            classes.append("sum")
+        if kind not in CONCENTRATION_KINDS:
+            classes.append("context")
+            reliability = f"{reliability}; no molar unit" if mark == "mark-ok" else reliability
+        if mark == "mark-bad":
+            classes.append("unreliable")
+        label = member_label(name)
+        is_reference = name == "tCr"
+        out.append({
+            "metabolite": name,
+            "_long": label.removesuffix(f" ({name})").removesuffix(f" {name}").strip()
+            if label != name else "",
+            "_colour": member_colour(name),
+            "_class": " ".join(classes),
+            "_mark_class": mark,
+            "kind": kind,
+            "conc": _pm(float(r["conc_molar_mm"]), float(r["conc_molar_sd_mm"])),
+            "molal": _pm(float(r["conc_molal_mmol_kg"]), float(r["conc_molal_sd_mmol_kg"])),
+            "ratio": "1 (reference)" if is_reference else _pm(float(r["ratio_tcr"]),
+                                                               float(r["ratio_tcr_sd"])),
+            "amplitude": sig(r["amplitude"]),
+            "crlb": crlb_text(pct),
+            "reliability": reliability,
         })
-    columns = [("metabolite", "member"), ("kind", "kind"), ("amplitude", "amplitude (a.u.)"),
-               ("crlb", "CRLB (%)"), ("ratio", "/ tCr ± SD")]
-    if water_referenced:
-        columns += [("molar", "mM (tissue) ± SD"), ("molal", "mmol/kg water ± SD")]
-    columns.append(("flag", "fit note"))
-    return html_table(
-        columns, table_rows, numeric=("amplitude", "crlb", "ratio", "molar", "molal"),
-        row_class=lambda row: "sum" if row["kind"] == "sum" else "",
-        cell_class={"flag": lambda row: "flag" if row["flag"] else ""},
-    )
+    return out
 
 
 def _header_rows(scan: Any, water: Any) -> list[dict[str, str]]:
@@ -182,6 +169,22 @@ def _header_rows(scan: Any, water: Any) -> list[dict[str, str]]:
                 value = f"[{len(value)} values]"
             rows.append({"file": label, "key": str(key), "value": str(value)})
     return rows
+
+
+def _noise_statement(fit: Any, qc: Any) -> str:
+    regions = qc.settings.get("noise_region_ppm") or qc.settings.get("noise_regions_ppm")
+    fit_regions = list(getattr(fit, "noise_ppm", []) or [])
+
+    def ranges(value: Any) -> str:
+        if not value:
+            return "not recorded"
+        items = value if isinstance(value[0], list | tuple) else [value]
+        return ", ".join(f"{sig(lo)} to {sig(hi)} ppm" for lo, hi in items)
+
+    return (f"Noise: the SNR above uses the noise SD of the spectrum in {ranges(regions)}; "
+            f"the fit's error bounds use the noise SD {sig(fit.noise_sd)} measured in "
+            f"{ranges(fit_regions) if fit_regions else 'the regions of the settings'}. "
+            "The two can differ because the regions differ.")
 
 
 def render_report(
@@ -203,8 +206,9 @@ def render_report(
     links: Mapping[str, str] | None = None,
     cfg_source: str = "",
     generated: str | None = None,
+    physics: Sequence[Mapping[str, Any]] = (),
 ) -> str:
-    """The report page as a string (see the module docstring for its rules).
+    """The report page of one scan as a string (see the module docstring for its rules).
 
     Parameters
     ----------
@@ -230,137 +234,95 @@ def render_report(
     tissue : mapping, optional
         Tissue fractions used.
     notes : sequence of str
-        Notes of the run.
+        Notes of the run (sentences; shown with the warnings).
     links : mapping, optional
         Link text -> relative file name (files beside the report).
     cfg_source : str
         Where the settings came from.
     generated : str, optional
         Time stamp (default: now, UTC).
+    physics : sequence of mapping, optional
+        Provenance of the physical values used: rows with ``quantity``, ``value``, ``source``.
     """
     stamp = generated or _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds")
-    parts: list[str] = []
-    parts.append(
-        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
-        "<meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">"
-        f"<title>specproc report: {escape(title)}</title><style>{_STYLE}</style></head><body>"
-    )
-    parts.append(
-        f"<header class=\"band\"><h1>Spectroscopy report: {escape(title)}</h1>"
-        f"<p>specproc {escape(versions.get('specproc', ''))} · generated {escape(stamp)} · "
-        f"source <code>{escape(scan.source or '')}</code></p></header><main>"
-    )
-    parts.append(f"<div class=\"caution\" role=\"note\"><strong>Caution.</strong> "
-                 f"{escape(CAUTION_TEXT)}</div>")
-
-    # ---- overview
-    chips = []
-    if qc.passed:
-        chips.append("<span class=\"ok\">QC: no flag raised</span>")
-    else:
-        chips.append(f"<span class=\"flag\">QC: {len(qc.flags)} flag(s)</span>")
-    chips.append(f"<span class=\"{'ok' if fit.success else 'flag'}\">fit: "
-                 f"{'converged' if fit.success else 'not converged'}</span>")
-    chips.append(f"<span>SNR {escape(format_number(qc.snr, 3))}</span>")
-    chips.append(f"<span>NAA FWHM {escape(format_number(qc.naa_fwhm_hz, 3))} Hz</span>")
-    parts.append("<section><h2>Overview</h2>"
-                 f"<div class=\"chips\">{''.join(chips)}</div>"
-                 f"<p>{escape(quant.statement)}.</p>")
+    limit = qc.thresholds.crlb_percent_max
+    display = result_display_rows(rows, limit)
+    columns: list[tuple[str, str]] = [("metabolite", "metabolite")]
+    if quant.water_referenced:
+        columns += [("conc", "mM in tissue ± SD"), ("molal", "mmol/kg tissue water ± SD")]
+    columns += [("ratio", "ratio to tCr ± SD"), ("amplitude", "amplitude (a.u.)"),
+                ("crlb", "CRLB %"), ("reliability", "reliability")]
+    warnings = [qc_flag_sentence(f.name, f.value, f.threshold) for f in qc.flags]
+    warnings += [fit_flag_sentence(f, fit) for f in fit.flags
+                 if not f.startswith("at_zero_bound:")]
+    not_detected = [str(r["metabolite"]) for r in rows
+                    if "zero_bound" in str(r.get("fit_flag") or "")]
+    remarks = list(notes)
+    if not_detected:
+        remarks.append("Fitted at zero (not detected): " + ", ".join(not_detected) + ".")
     if not quant.water_referenced:
-        parts.append("<p class=\"muted\">No water-referenced concentrations: "
-                     + ("no tissue fractions were given for this scan."
-                        if water is not None else "there is no water reference for this scan.")
-                     + " Ratios to total creatine are not corrected for relaxation.</p>")
-    parts.append("</section>")
-
-    # ---- results
-    parts.append("<section id=\"results\"><h2>Results</h2>")
-    parts.append(_results_section(rows, quant.water_referenced))
-    parts.append("<p class=\"muted\">Amplitudes are per molecule (the basis carries the proton "
-                 "counts). CRLB: Cramér-Rao lower bound of the amplitude, in % of it. Sums "
-                 "(bold) take the covariance of their members into account.</p></section>")
-
-    # ---- QC
-    parts.append("<section id=\"qc\"><h2>Quality control</h2>")
-    parts.append(html_table(
-        [("metric", "metric"), ("value", "value"), ("unit", "unit"),
-         ("threshold", "flag rule"), ("flag", "flag"), ("definition", "definition")],
-        qc_rows(qc), numeric=("value",),
-        cell_class={"flag": lambda row: "flag" if row["flag"] else ""},
-    ))
-    if qc.notes:
-        parts.append("<ul>" + "".join(f"<li>{escape(n)}</li>" for n in qc.notes) + "</ul>")
-    parts.append("</section>")
-
-    # ---- figures
-    parts.append("<section id=\"figures\"><h2>Figures</h2>")
-    for k, (caption, png) in enumerate(figures, start=1):
-        parts.append(f"<figure><img alt=\"{escape(caption)}\" src=\"{png_data_uri(png)}\">"
-                     f"<figcaption>Figure {k}. {escape(caption)}</figcaption></figure>")
-    parts.append("</section>")
-
-    # ---- methods
-    parts.append("<section id=\"methods\"><h2>Methods (minimum reporting items)</h2>"
-                 "<p class=\"muted\">Grouped after the sections of the minimum reporting "
-                 "standards for in vivo MRS (Lin et al., NMR Biomed 2021;34:e4484).</p>")
-    parts.append(html_table(
-        [("section", "section"), ("item", "item"), ("value", "value")],
-        methods_rows(scan=scan, water=water, pre=pre, fit=fit, quant=quant, qc=qc,
-                     basis_info=basis_info, versions=versions, water_info=water_info,
-                     tissue=tissue),
-        cell_class={"section": lambda row: "nowrap"},
-    ))
-    parts.append("</section>")
-    parts.append("<section id=\"processing\"><h2>Processing steps</h2>")
-    parts.append(html_table(
-        [("step", "#"), ("method", "step"), ("details", "parameters"), ("program", "program")],
-        processing_rows(pre.scan.provenance),
-    ))
+        remarks.append(
+            "No water-referenced concentrations: "
+            + ("no tissue fractions were given for this scan."
+               if water is not None else "there is no water reference for this scan.")
+            + " Ratios to total creatine are not corrected for relaxation.")
+    n_unreliable = sum(1 for r in display if "unreliable" in r["_class"])
+    cards = [
+        {"label": "quality control", "cls": "good" if qc.passed else "bad",
+         "value": "passed" if qc.passed else f"{len(qc.flags)} flag(s)"},
+        {"label": "fit", "cls": "good" if fit.success else "bad",
+         "value": "converged" if fit.success else "not converged"},
+        {"label": "SNR (NAA)", "cls": "", "value": sig(qc.snr)},
+        {"label": "NAA FWHM", "cls": "", "value": f"{sig(qc.naa_fwhm_hz)} Hz"},
+        {"label": "rows above CRLB limit", "cls": "", "value": str(n_unreliable)},
+    ]
+    legend = (
+        "Amplitudes are per molecule (the basis carries the proton counts). CRLB: Cramér-Rao "
+        "lower bound of the amplitude, in % of it; '—' where it is undefined. Rows whose CRLB "
+        + (f"is above {limit:g} % ([qc] crlb_percent_max) " if limit is not None else
+           "is undefined ")
+        + "are marked unreliable. Sums take the covariance of their members into account. "
+        "Macromolecule and lipid components (grey) have amplitudes and ratios but no molar "
+        "concentration.")
+    figure_items = [{"caption": caption, "uri": png_data_uri(png)} for caption, png in figures]
+    formula = "\n".join(f"{k}: {v}" for k, v in quant.formula.items())
+    water_steps = ""
     if pre.water is not None:
-        parts.append("<p class=\"muted\">Water reference: "
-                     + escape("; ".join(r.get("Method", "") for r in pre.water.provenance))
-                     + "</p>")
-    parts.append("</section>")
-
-    # ---- quantification
-    parts.append("<section id=\"quantification\"><h2>Quantification</h2>")
-    formula_lines = [f"{k}: {v}" for k, v in quant.formula.items()]
-    parts.append(f"<pre>{escape(chr(10).join(formula_lines))}</pre>")
-    if quant.notes:
-        parts.append("<ul>" + "".join(f"<li>{escape(n)}</li>" for n in quant.notes) + "</ul>")
-    parts.append("<p class=\"muted\">Every constant used is in <code>fit.json</code> "
-                 "(key <code>quantification.constants</code>).</p></section>")
-
-    # ---- header strings of the files
-    parts.append("<section id=\"header\"><h2>File header</h2>")
-    parts.append(html_table([("file", "file"), ("key", "key"), ("value", "value")],
-                            _header_rows(scan, water)))
-    parts.append("</section>")
-
-    # ---- versions and settings
-    parts.append("<section id=\"software\"><h2>Software and settings</h2>")
-    parts.append(html_table([("name", "software"), ("version", "version")],
-                            [{"name": k, "version": v} for k, v in versions.items()]))
-    link_items = []
-    for text, target in (links or {}).items():
-        link_items.append(f"<li><a href=\"{escape(target)}\">{escape(text)}</a></li>")
-    doc = methods_doc_uri()
-    if doc:
-        link_items.append(f"<li><a href=\"{escape(doc)}\">methods document "
-                          "(docs/methods.md)</a>: every step with its equation and "
-                          "reference</li>")
-    else:
-        link_items.append("<li>methods document: docs/methods.md in the specproc source</li>")
-    parts.append(f"<p>Settings: {escape(cfg_source)}. The exact settings used are in "
-                 "<code>config.toml</code> (reusable with <code>--config</code>) and, with every "
-                 "fitted value, in <code>fit.json</code>:</p><ul>" + "".join(link_items)
-                 + "</ul>")
-    if notes:
-        parts.append("<h2>Notes</h2><ul>" + "".join(f"<li>{escape(n)}</li>" for n in notes)
-                     + "</ul>")
-    parts.append("</section>")
-    parts.append(f"<footer>{escape(CAUTION_TEXT)}</footer></main></body></html>\n")
-    return "".join(parts)
+        water_steps = "; ".join(str(r.get("Method", "")) for r in pre.water.provenance)
+    return render_page(
+        "scan.html.j2",
+        page_title=f"specproc report: {title}",
+        heading=f"Spectroscopy report: {title}",
+        subheading=f"specproc {versions.get('specproc', '')} · generated {stamp} · source "
+                   f"{scan.source or ''}",
+        cards=cards,
+        statement=f"{quant.statement[:1].upper()}{quant.statement[1:]}. "
+                  f"{fit_status_sentence(fit)}",
+        warnings=warnings,
+        remarks=remarks,
+        result_columns=columns,
+        result_numeric=("conc", "molal", "ratio", "amplitude", "crlb"),
+        result_rows=display,
+        results_legend=legend,
+        figures=figure_items,
+        qc_rows=qc_rows(qc),
+        qc_notes=list(qc.notes),
+        noise_statement=_noise_statement(fit, qc),
+        methods=methods_rows(scan=scan, water=water, pre=pre, fit=fit, quant=quant, qc=qc,
+                             basis_info=basis_info, versions=versions, water_info=water_info,
+                             tissue=tissue),
+        processing=processing_rows(pre.scan.provenance),
+        water_steps=water_steps,
+        formula=formula,
+        quant_notes=list(quant.notes),
+        physics=[{k: format_number(v) if isinstance(v, float) else v for k, v in row.items()}
+                 for row in physics],
+        header_rows=_header_rows(scan, water),
+        versions=[{"name": k, "version": v} for k, v in versions.items()],
+        cfg_source=cfg_source,
+        links=list((links or {}).items()),
+        methods_doc=methods_doc_uri(),
+    )
 
 
 def write_report(path: str | os.PathLike[str], **kwargs: Any) -> Path:

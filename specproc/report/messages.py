@@ -51,6 +51,8 @@ _SUM_NAMES: Mapping[str, str] = {
     "tCr": "total creatine (Cr + PCr)",
     "tCho": "total choline (GPC + PCh)",
     "Glx": "glutamate + glutamine (Glx)",
+    "FatCH3": "lipid methyl groups (FatCH3)",
+    "FatCH2": "lipid methylene chain (FatCH2)",
 }
 
 #: Flags without a value: key -> sentence.

@@ -17,8 +17,10 @@ from typing import Any
 import numpy as np
 
 __all__ = [
+    "CONCENTRATION_KINDS",
     "RESULT_COLUMNS",
     "config_to_toml",
+    "crlb_reliable",
     "format_number",
     "methods_rows",
     "processing_rows",
@@ -43,6 +45,7 @@ RESULT_COLUMNS: tuple[str, ...] = (
     "conc_molal_mmol_kg",
     "conc_molal_sd_mmol_kg",
     "fit_flag",
+    "crlb_reliable",
     "snr",
     "naa_fwhm_hz",
     "qc_passed",
@@ -85,6 +88,23 @@ def format_number(value: Any, digits: int = 3) -> str:
     return str(value)
 
 
+#: Row kinds that carry a molar concentration. Macromolecule and lipid components have no
+#: defined molecule (so no proton count per molecule and no relaxation times): their rows carry
+#: amplitudes, bounds and ratios only, in results.tsv, the report and the cohort summaries.
+CONCENTRATION_KINDS: frozenset[str] = frozenset({"metabolite", "sum"})
+
+
+def crlb_reliable(crlb_percent: Any, limit: float | None) -> bool:
+    """Whether a row's Cramér-Rao bound is defined and within ``limit`` (%; None: no limit)."""
+    try:
+        value = float(crlb_percent)
+    except (TypeError, ValueError):
+        return False
+    if not math.isfinite(value):
+        return False
+    return limit is None or value <= float(limit)
+
+
 def results_rows(fit: Any, quant: Any, qc: Any, *, scan_label: str) -> list[dict[str, Any]]:
     """Tidy results: the fit table with ratio SDs, concentrations and scan-level QC columns.
 
@@ -102,18 +122,24 @@ def results_rows(fit: Any, quant: Any, qc: Any, *, scan_label: str) -> list[dict
     Returns
     -------
     list of dict
-        Keys :data:`RESULT_COLUMNS`; concentrations NaN without water referencing.
+        Keys :data:`RESULT_COLUMNS`; concentrations NaN without water referencing and for
+        rows whose kind is not in :data:`CONCENTRATION_KINDS`. ``crlb_reliable`` applies the
+        CRLB limit of the QC thresholds (``[qc] crlb_percent_max``). ``fit_flag`` and
+        ``qc_flags`` hold machine keys (``;``-separated); their sentences are in the report.
     """
     from specproc.fit import results_table
 
     nan = float("nan")
-    flags = "; ".join(f.message for f in qc.flags)
+    flags = ";".join(f.name for f in qc.flags)
+    limit = getattr(getattr(qc, "thresholds", None), "crlb_percent_max", None)
     out = []
     for row in results_table(fit):
         name = row["metabolite"]
 
         def get(table: Mapping[str, float] | None, key: str = name) -> float:
             return nan if table is None else float(table.get(key, nan))
+
+        molar = row["kind"] in CONCENTRATION_KINDS
 
         out.append({
             "scan": scan_label,
@@ -124,11 +150,12 @@ def results_rows(fit: Any, quant: Any, qc: Any, *, scan_label: str) -> list[dict
             "crlb_percent": float(row["crlb_percent"]),
             "ratio_tcr": get(quant.ratios),
             "ratio_tcr_sd": get(quant.ratio_sd),
-            "conc_molar_mm": get(quant.conc_molar_mm),
-            "conc_molar_sd_mm": get(quant.conc_molar_sd_mm),
-            "conc_molal_mmol_kg": get(quant.conc_molal_mmol_kg),
-            "conc_molal_sd_mmol_kg": get(quant.conc_molal_sd_mmol_kg),
+            "conc_molar_mm": get(quant.conc_molar_mm) if molar else nan,
+            "conc_molar_sd_mm": get(quant.conc_molar_sd_mm) if molar else nan,
+            "conc_molal_mmol_kg": get(quant.conc_molal_mmol_kg) if molar else nan,
+            "conc_molal_sd_mmol_kg": get(quant.conc_molal_sd_mmol_kg) if molar else nan,
             "fit_flag": row["flag"],
+            "crlb_reliable": crlb_reliable(row["crlb_percent"], limit),
             "snr": float(qc.snr),
             "naa_fwhm_hz": float(qc.naa_fwhm_hz),
             "qc_passed": bool(qc.passed),
@@ -155,47 +182,59 @@ def rows_to_tsv(rows: Sequence[Mapping[str, Any]], columns: Sequence[str] = RESU
 
 
 def qc_rows(qc: Any) -> list[dict[str, str]]:
-    """QC metrics with their definitions and the flag of each (for the report)."""
-    from specproc.qc import QC_DEFINITIONS
+    """QC measures with their limits, a status sentence and the definition of each."""
+    from specproc.qc import QC_DEFINITIONS, QCThresholds
+    from specproc.report.messages import qc_flag_sentence
 
     flagged = {f.name: f for f in qc.flags}
     th = qc.thresholds
+    default = QCThresholds()
 
     def row(label: str, value: Any, unit: str, metric: str, definition: str,
             limit: str = "") -> dict[str, str]:
         flag = flagged.get(metric)
+        status = ""
+        if flag is not None:
+            status = qc_flag_sentence(flag.name, flag.value, flag.threshold)
+        elif limit and limit != "off":
+            status = "within the limit"
         return {
             "metric": label,
             "value": format_number(value),
             "unit": unit,
-            "threshold": limit,
-            "flag": flag.message if flag else "",
+            "rule": limit,
+            "status": status,
             "definition": definition,
+            "_class": "unreliable" if flag is not None else "",
         }
 
-    def limit(rule: str, value: float | None) -> str:
-        return "off" if value is None else f"{rule} {value:g} (common practice)"
+    def limit(rule: str, name: str) -> str:
+        value = getattr(th, name)
+        if value is None:
+            return "off"
+        origin = "common practice" if value == getattr(default, name) else "your setting"
+        return f"{rule} {value:g} ({origin})"
 
     rows = [
-        row("SNR (NAA)", qc.snr, "", "snr", QC_DEFINITIONS["snr"], limit("flag if <", th.snr_min)),
+        row("SNR (NAA)", qc.snr, "", "snr", QC_DEFINITIONS["snr"], limit("at least", "snr_min")),
         row("noise SD", qc.noise_sd, "a.u.", "noise_sd", QC_DEFINITIONS["noise_sd"]),
         row("NAA FWHM", qc.naa_fwhm_hz, "Hz", "naa_fwhm_hz", QC_DEFINITIONS["fwhm"]),
         row("NAA FWHM", qc.naa_fwhm_ppm, "ppm", "naa_fwhm_ppm", QC_DEFINITIONS["fwhm"],
-            limit("flag if >", th.naa_fwhm_ppm_max)),
+            limit("at most", "naa_fwhm_ppm_max")),
         row("water FWHM", qc.water_fwhm_hz, "Hz", "water_fwhm_hz", QC_DEFINITIONS["fwhm"]),
         row("water FWHM", qc.water_fwhm_ppm, "ppm", "water_fwhm_ppm", QC_DEFINITIONS["fwhm"],
-            limit("flag if >", th.water_fwhm_ppm_max)),
+            limit("at most", "water_fwhm_ppm_max")),
         row("fit residual / noise", qc.residual_ratio, "", "residual_ratio",
-            QC_DEFINITIONS["residual_ratio"], limit("flag if >", th.residual_ratio_max)),
+            QC_DEFINITIONS["residual_ratio"], limit("at most", "residual_ratio_max")),
         row("transients", qc.n_transients, "", "n_transients", "number acquired"),
         row("rejected transients", qc.n_rejected, "", "rejected_fraction",
-            QC_DEFINITIONS["n_rejected"], limit("flag if fraction >", th.rejected_fraction_max)),
+            QC_DEFINITIONS["n_rejected"], limit("fraction at most", "rejected_fraction_max")),
         row("frequency drift range", qc.drift_range_hz, "Hz", "drift_range_hz",
-            QC_DEFINITIONS["drift_range_hz"], limit("flag if >", th.drift_range_hz_max)),
+            QC_DEFINITIONS["drift_range_hz"], limit("at most", "drift_range_hz_max")),
     ]
     for name, value in qc.crlb_percent.items():
         rows.append(row(f"CRLB {name}", value, "%", f"crlb:{name}",
-                        "Cramér-Rao SD / amplitude", limit("flag if >", th.crlb_percent_max)))
+                        "Cramér-Rao SD / amplitude", limit("at most", "crlb_percent_max")))
     return rows
 
 
@@ -296,22 +335,49 @@ def methods_rows(
     return rows
 
 
+_UNIT_SUFFIXES: tuple[tuple[str, str], ...] = (
+    ("_ppm", "ppm"), ("_hz", "Hz"), ("_deg", "°"), ("_s", "s"), ("_ms", "ms"),
+    ("_percent", "%"), ("_c", "°C"),
+)
+
+
+def _detail_text(key: str, value: Any) -> str | None:
+    """``"window 1.8 to 4.2 ppm"``-style text of one provenance detail (None: left out)."""
+    label, unit = key, ""
+    for suffix, text in _UNIT_SUFFIXES:
+        if key.endswith(suffix):
+            label, unit = key[: -len(suffix)], text
+            break
+    label = label.replace("_", " ")
+    if isinstance(value, Mapping):
+        return None  # nested records are in fit.json
+    if isinstance(value, list | tuple):
+        if len(value) == 2 and all(isinstance(v, int | float) and not isinstance(v, bool)
+                                   for v in value):
+            return f"{label} {sig(value[0])} to {sig(value[1])} {unit}".rstrip()
+        if len(value) > 6:
+            return f"{label}: {len(value)} values (in fit.json)"
+        return f"{label} " + ", ".join(format_number(v) for v in value) + (f" {unit}" if unit
+                                                                             else "")
+    if isinstance(value, bool):
+        return f"{label}: {'yes' if value else 'no'}"
+    if isinstance(value, int | float | np.floating | np.integer):
+        return f"{label} {sig(value)} {unit}".rstrip()
+    text = str(value)
+    return f"{label}: {text}" if text else None
+
+
 def processing_rows(provenance: Sequence[Mapping[str, Any]]) -> list[dict[str, str]]:
-    """One row per processing record (method and a short rendering of its details)."""
+    """One row per processing record: the step and its settings and outcome in words."""
     rows = []
     for k, record in enumerate(provenance, start=1):
         details = record.get("Details", {}) or {}
-        parts = []
-        for key, value in details.items():
-            if isinstance(value, list | tuple) and len(value) > 6:
-                continue  # per-transient arrays are in fit.json
-            if isinstance(value, Mapping):
-                continue
-            parts.append(f"{key}={format_number(value)}")
+        parts = [t for t in (_detail_text(str(key), value) for key, value in details.items())
+                 if t]
         rows.append({
             "step": str(k),
             "method": str(record.get("Method", "")),
-            "details": ", ".join(parts),
+            "details": "; ".join(parts),
             "program": f"{record.get('Program', '')} {record.get('Version', '')}".strip(),
         })
     return rows
@@ -378,11 +444,11 @@ def config_to_toml(config: Mapping[str, Any], *, header: str | None = None) -> s
     def emit(table: Mapping[str, Any], prefix: tuple[str, ...]) -> None:
         scalars = {k: v for k, v in table.items() if not isinstance(v, Mapping)}
         tables = {k: v for k, v in table.items() if isinstance(v, Mapping)}
-        if scalars and prefix:
+        if (scalars or not tables) and prefix:  # an empty table is written too
             lines.append("[" + ".".join(_toml_key(p) for p in prefix) + "]")
         for key, value in scalars.items():
             lines.append(f"{_toml_key(str(key))} = {_toml_value(value)}")
-        if scalars:
+        if scalars or (not tables and prefix):
             lines.append("")
         for key, value in tables.items():
             emit(value, (*prefix, str(key)))
