@@ -650,18 +650,21 @@ def simulate_basis(
     return basis
 
 
-_OVERRIDES = {
-    "sequence", "field_t", "te_s", "te1_s", "tm_s", "delays_s", "dwell_s", "n_points",
-    "metabolites", "macromolecules", "centre_ppm", "cache", "progress",
+_PROTOCOL_ARGS = {"sequence", "field_t", "te_s", "metabolites", "macromolecules"}
+_TIMING_ARGS = {"te1_s", "tm_s", "delays_s"}
+_OVERRIDES = _PROTOCOL_ARGS | _TIMING_ARGS | {
+    "dwell_s", "n_points", "centre_ppm", "cache", "progress",
 }
 
 
 def basis_for_scan(scan: Any, **overrides: Any) -> BasisSet:
     """Simulate (or fetch from the cache) the basis matching a :class:`~specproc.data.Scan`.
 
-    The field comes from ``scan.spectrometer_mhz``, the sequence, TE and TM from the scan, the
-    dwell time and number of points from its data, the receiver centre from
-    ``scan.reference_ppm``. Any argument of :func:`simulate_basis` given in ``overrides`` wins.
+    The protocol (field, sequence, TE and sub-timings, dwell time, number of points, receiver
+    centre, the macromolecule rule) is :func:`specproc.protocol.resolve_protocol` of the scan;
+    ``te1_s``, ``tm_s`` and ``delays_s`` given here act as command-line options (they win over
+    every other source), the other arguments of :func:`simulate_basis` in ``overrides`` replace
+    the protocol's values.
 
     Raises
     ------
@@ -669,47 +672,17 @@ def basis_for_scan(scan: Any, **overrides: Any) -> BasisSet:
         When the scan does not say its sequence or TE (and no override gives it), for an
         unknown sequence name, or an unknown override.
     """
+    from specproc.protocol import resolve_protocol
+
     unknown = sorted(set(overrides) - _OVERRIDES)
     if unknown:
         raise InvalidInputError(
             f"unknown basis option(s) {unknown}; known: {', '.join(sorted(_OVERRIDES))}"
         )
-    where = getattr(scan, "source", None)
-    seq_name = overrides.pop("sequence", None) or scan.sequence
-    if not seq_name:
-        raise InvalidInputError(
-            "the scan does not say which sequence acquired it; name it with --sequence "
-            "or a manifest column (pulse-acquire, spin-echo, press, steam, semi-laser)",
-            where,
-        )
-    try:
-        seq_name = normalise_sequence_name(seq_name)
-    except InvalidInputError as exc:
-        raise InvalidInputError(
-            f"{exc.message}; name the sequence with --sequence to override", where
-        ) from None
-    args: dict[str, Any] = {
-        "sequence": seq_name,
-        "field_t": field_from_larmor(scan.spectrometer_mhz, scan.nucleus),
-        "dwell_s": scan.dwell_s,
-        "n_points": scan.n_points,
-        "centre_ppm": scan.reference_ppm,
-    }
-    if seq_name != "pulse-acquire":
-        te = overrides.pop("te_s", None)
-        te = scan.te_s if te is None else te
-        if te is None and overrides.get("delays_s") is None:
-            raise InvalidInputError(
-                f"the scan does not give its echo time; give te_s=... for {seq_name}", where
-            )
-        args["te_s"] = te
-    if seq_name == "steam":
-        tm = overrides.pop("tm_s", None)
-        tm = scan.tm_s if tm is None else tm
-        if tm is None:
-            raise InvalidInputError(
-                "the scan does not give the STEAM mixing time; give tm_s=...", where
-            )
-        args["tm_s"] = tm
+    protocol = resolve_protocol(
+        scan, **{k: overrides.pop(k) for k in _PROTOCOL_ARGS & set(overrides)},
+        option={k: overrides.pop(k) for k in _TIMING_ARGS & set(overrides)},
+    )
+    args = protocol.simulation_args()
     args.update(overrides)
     return simulate_basis(**args)

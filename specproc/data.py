@@ -103,6 +103,9 @@ class Scan:
         Echo, repetition and mixing time, s (``None`` when unknown).
     sequence : str or None
         Sequence name where known (``"press"``, ``"steam"``, ``"semi-laser"`` ...).
+    timings : mapping
+        Sequence sub-timings given by the file (``te1_s``, ``tm_s`` s; ``delays_s`` tuple of s),
+        used by :mod:`specproc.protocol`; empty when the file gives none.
     protocol : str or None
         Protocol name from the header (free text; escape before showing it in HTML).
     water_suppressed : bool or None
@@ -129,6 +132,7 @@ class Scan:
     tr_s: float | None = None
     tm_s: float | None = None
     sequence: str | None = None
+    timings: Mapping[str, Any] = field(default_factory=dict)
     protocol: str | None = None
     water_suppressed: bool | None = None
     dim_headers: Mapping[str, Any] = field(default_factory=dict)
@@ -173,6 +177,11 @@ class Scan:
                 object.__setattr__(self, name, value)
         if self.centre_ppm is not None:
             object.__setattr__(self, "centre_ppm", float(self.centre_ppm))
+        if self.timings:
+            from specproc.protocol import parse_timings
+
+            object.__setattr__(self, "timings", parse_timings(
+                self.timings, where=where, what="sequence timings"))
         if data.flags.writeable:  # copy so that the caller's array cannot change the Scan
             frozen = data.copy()
             frozen.flags.writeable = False
@@ -269,6 +278,8 @@ class Scan:
             "tr_s": self.tr_s,
             "tm_s": self.tm_s,
             "sequence": self.sequence,
+            "timings": {k: list(v) if isinstance(v, tuple) else v
+                        for k, v in self.timings.items()},
             "protocol": self.protocol,
             "centre_ppm": self.reference_ppm,
             "dtype": str(self.data.dtype),

@@ -65,7 +65,7 @@ match its file name.
 
 Concentrations: with ``reference = "water"``,
 ``[M] = (A_M / R_M) / ((S_W / 2) / R_W) · water_mm`` where ``A_M`` is the fitted amplitude per
-molecule, ``S_W`` the water signal at t = 0 (:func:`specproc.workflow.water_amplitude`; 2
+molecule, ``S_W`` the water signal at t = 0 (:func:`specproc.quantify.water_amplitude`; 2
 protons), ``R = exp(-TE/T2)·(1 - exp(-TR/T1))`` when relaxation times are given (else 1); with
 a reference compound X of nominal concentration ``[X]``: ``[M] = [X] · A_M / A_X``.
 
@@ -468,12 +468,11 @@ def analyse_phantom(
     -------
     PhantomMeasurement
     """
-    from specproc.basis import basis_for_scan
+    from specproc.analysis import analyse_scan
     from specproc.config import merge_config
-    from specproc.fit import fit_spectrum
     from specproc.io import load
     from specproc.preprocess.pipeline import run_pipeline
-    from specproc.qc import qc_from_scan
+    from specproc.protocol import resolve_protocol
 
     path = Path(scan_path)
     cfg = merge_config(dict(config or {}), source="configuration")
@@ -484,19 +483,20 @@ def analyse_phantom(
         raise InvalidInputError(
             "reference = 'water' needs a water reference scan (--water, or a *_mrsref file)",
             path)
-    notes: list[str] = []
-    pre = run_pipeline(scan, water=water, config=cfg)
+    protocol = None
     if basis is None:
-        basis = basis_for_scan(pre.scan, metabolites=list(phantom.concentrations_mm),
-                               macromolecules=False)
-    fit = fit_spectrum(pre.scan, basis, config=cfg)
+        protocol = resolve_protocol(scan, config=cfg, metabolites=list(phantom.concentrations_mm),
+                                    macromolecules=False)
+    result = analyse_scan(scan, water, basis=basis, protocol=protocol, config=cfg)
+    pre, fit = result.preprocessing, result.fit
+    notes: list[str] = []
     amp = {n.lower(): float(a) for n, a in zip(fit.names, fit.amplitudes, strict=True)}
     crlb = {n.lower(): float(c) for n, c in zip(fit.names, fit.crlb_percent, strict=True)}
     measured: dict[str, float] = {}
     te, tr = pre.scan.te_s, pre.scan.tr_s
     relax = {k.lower(): v for k, v in nominal.relaxation.items()}
     if nominal.reference.lower() == "water":
-        from specproc.workflow import water_amplitude
+        from specproc.quantify import water_amplitude
 
         s_w, _, _ = water_amplitude(pre.water)
         r_w = _relax(relax.get("water"), pre.water.te_s or te, pre.water.tr_s or tr)
@@ -532,7 +532,7 @@ def analyse_phantom(
     except InvalidInputError as exc:
         water_ppm = singlet_ppm = temperature = math.nan
         notes.append(f"temperature not estimated: {exc.message}")
-    qc = qc_from_scan(pre.scan, water=pre.water)
+    qc = result.qc
     return PhantomMeasurement(
         scan=path.name, phantom=phantom.name, session=_session_label(scan, path),
         nominal_mm=dict(phantom.concentrations_mm), measured_mm=measured,

@@ -39,13 +39,16 @@ import tomllib
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from specproc._json import to_jsonable
 from specproc.constants import WATER_MOLAR_MM
 from specproc.errors import InvalidInputError
+
+if TYPE_CHECKING:
+    from specproc.data import Scan
 
 __all__ = [
     "DEFAULT_COMBINATIONS",
@@ -65,6 +68,7 @@ __all__ = [
     "ratio_linear",
     "relaxation_factor",
     "validate_tissue_fractions",
+    "water_amplitude",
     "water_mole_fractions",
 ]
 
@@ -510,13 +514,15 @@ def validate_tissue_fractions(
         if not math.isfinite(v) or v < 0:
             raise InvalidInputError(f"tissue fraction {t} must be finite and >= 0, got {v}")
         values[t] = v
-    total = sum(values.values())
+    total = math.fsum(values.values())
     if abs(total - 1.0) > atol:
         raise InvalidInputError(
             f"tissue fractions sum to {total:.4f}, not 1 within {atol} (gm, wm, csf = "
             f"{values['gm']}, {values['wm']}, {values['csf']})"
         )
-    out = {t: v / total for t, v in values.items()}
+    # fractions that already sum to 1 (to rounding) are kept, so that validating twice
+    # gives the same numbers
+    out = values if abs(total - 1.0) <= 1e-12 else {t: v / total for t, v in values.items()}
     if out["csf"] >= 1.0 - 1e-9:
         raise InvalidInputError("the voxel is CSF only: no tissue to refer concentrations to")
     return out
@@ -1227,3 +1233,72 @@ def _positive(
 
 def _json_number(x: float) -> float | None:
     return float(x) if math.isfinite(x) else None
+
+
+# ============================================================================ water signal
+def water_amplitude(
+    water: Scan, *, window_s: tuple[float, float] = (0.0, 0.15), min_fraction: float = 0.05
+) -> tuple[float, float, dict[str, Any]]:
+    """Water signal at t = 0 from the decay of an averaged water FID.
+
+    The magnitude ``|w(t)|`` is fitted over ``window_s`` (points above ``min_fraction`` of its
+    maximum) by weighted linear least squares of ``ln|w(t)| = ln S_W - a t - b t²`` (a Voigt
+    decay: Lorentzian ``a = π Γ_L``, Gaussian ``b = (π Γ_G)² / (4 ln 2)``), with weights
+    ``|w(t)|²`` (the noise of ``ln|w|`` is about σ/|w|). ``S_W`` is the extrapolated signal at
+    t = 0, on the scale of the fitted metabolite amplitudes.
+
+    Parameters
+    ----------
+    water : Scan
+        One averaged water FID (``dims == ()``).
+    window_s : (float, float)
+        Time window of the fit, s.
+    min_fraction : float
+        Points whose magnitude is below this fraction of the maximum are left out.
+
+    Returns
+    -------
+    amplitude : float
+        S_W (units of the data).
+    amplitude_sd : float
+        Its SD from the least-squares covariance scaled by the residual variance.
+    details : dict
+        Method, window, fitted decay constants, number of points.
+
+    Raises
+    ------
+    InvalidInputError
+        For a water scan with extra axes or fewer than 8 usable points.
+    """
+    if water.dims != ():
+        raise InvalidInputError("the water reference must be averaged first", water.source)
+    t = water.time_s()
+    mag = np.abs(np.asarray(water.data, dtype=complex))
+    peak = float(mag.max(initial=0.0))
+    sel = (t >= window_s[0]) & (t <= window_s[1]) & (mag > min_fraction * peak)
+    if np.count_nonzero(sel) < 8 or peak <= 0:
+        raise InvalidInputError(
+            "the water reference decays too fast to measure its amplitude", water.source
+        )
+    tt, yy = t[sel], np.log(mag[sel])
+    w = mag[sel]
+    design = np.stack([np.ones_like(tt), -tt, -(tt**2)], axis=1)
+    coef, *_ = np.linalg.lstsq(design * w[:, None], yy * w, rcond=None)
+    resid = (yy - design @ coef) * w
+    dof = max(1, tt.size - 3)
+    sigma2 = float(resid @ resid) / dof
+    cov = np.linalg.pinv((design * w[:, None]).T @ (design * w[:, None])) * sigma2
+    amplitude = float(np.exp(coef[0]))
+    sd = amplitude * float(np.sqrt(max(cov[0, 0], 0.0)))
+    lorentz = float(coef[1]) / np.pi
+    gauss_sq = float(coef[2]) * 4.0 * np.log(2.0)
+    details = {
+        "method": "ln|w(t)| = ln S_W - a t - b t^2 fitted by weighted least squares "
+                  "(weights |w|^2); S_W extrapolated to t = 0",
+        "window_s": [float(window_s[0]), float(window_s[1])],
+        "n_points": int(tt.size),
+        "first_point_magnitude": float(mag[0]),
+        "lorentz_fwhm_hz": lorentz,
+        "gauss_fwhm_hz": float(np.sqrt(gauss_sq)) / np.pi if gauss_sq > 0 else 0.0,
+    }
+    return amplitude, sd, details

@@ -57,7 +57,7 @@ def cache_env(tmp_path_factory: pytest.TempPathFactory) -> dict[str, str]:
 
 @pytest.fixture(scope="session")
 def small_basis(cache_env: dict[str, str]):
-    # TE 80 ms PRESS at 3 T: no macromolecules by the workflow's short-TE rule
+    # TE 80 ms PRESS at 3 T: no macromolecules by the short-TE rule of specproc.protocol
     return simulate_basis(sequence="press", field_t=3.0, te_s=0.08, dwell_s=5e-4,
                           n_points=1024, metabolites=list(MEMBERS))
 
@@ -247,8 +247,10 @@ def test_manifest_overrides_reach_the_processed_scan(cohort: Path, tmp_path: Pat
     summary = run_batch(read_manifest(manifest), tmp_path / "o",
                         config=load_config(cohort / "fast.toml"), metabolites=list(MEMBERS))
     assert summary.n_failed == 0
-    copy = load(tmp_path / "o/scans/over/input_with_overrides.nii.gz")
-    assert copy.te_s == pytest.approx(0.08) and copy.sequence == "press"
+    doc = json.loads((tmp_path / "o/scans/over/fit.json").read_text(encoding="utf-8"))
+    assert doc["inputs"]["scan"]["te_s"] == pytest.approx(0.08)
+    assert doc["inputs"]["scan"]["sequence"] == "press"
+    assert not (tmp_path / "o/scans/over/input_with_overrides.nii.gz").exists()
     assert header_te == pytest.approx(0.08)  # same protocol: the shared basis fits
     rows = [r for r in _rows(tmp_path / "o/cohort.tsv") if r["metabolite"] == "NAA"]
     assert float(rows[0]["amplitude"]) == pytest.approx(TRUTH["sub-02"]["NAA"], rel=0.05)

@@ -15,10 +15,8 @@ import math
 from pathlib import Path
 
 import pytest
-from click.testing import CliRunner
 
 from specproc._paths import demo_dir
-from specproc.cli import main
 
 DEMO = demo_dir()
 TRUTH = json.loads((DEMO / "truth.json").read_text(encoding="utf-8"))
@@ -33,20 +31,11 @@ def _rows(path: Path) -> list[dict[str, str]]:
 
 
 @pytest.fixture(scope="module")
-def cohort(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    out = tmp_path_factory.mktemp("demo-batch") / "out"
-    cache = tmp_path_factory.mktemp("demo-batch-cache")
-    with pytest.MonkeyPatch.context() as mp:
-        mp.setenv("SPECPROC_CACHE_DIR", str(cache))
-        result = CliRunner().invoke(
-            main,
-            ["batch", str(DEMO / "manifest.tsv"), "-o", str(out), "--workers", "2",
-             "--no-progress", "--strict"],
-            catch_exceptions=False,
-        )
-    assert result.exit_code == 0, result.output
-    assert "0 failed" in result.output
-    return out
+def cohort(demo_cohort) -> Path:
+    """The batch folder of the session's ``specproc demo --workers 2`` run (two worker
+    processes over the demo manifest)."""
+    assert ", 0 failed" in demo_cohort.output
+    return demo_cohort.out
 
 
 def test_every_demo_scan_is_in_the_cohort_tables(cohort: Path) -> None:

@@ -36,33 +36,27 @@ RATIOS = ("NAA", "tCho", "mI", "Glx")
 TOLERANCE = 0.10
 
 
-@pytest.fixture(scope="module")
-def basis_cache(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    """A basis cache folder shared by the tests of this module."""
-    return tmp_path_factory.mktemp("cache")
-
-
-@pytest.fixture(scope="module")
-def demo_run(tmp_path_factory: pytest.TempPathFactory, basis_cache: Path) -> tuple[str, Path]:
-    """Run ``specproc demo`` once for the module, with the basis cache in a temporary folder."""
-    out = tmp_path_factory.mktemp("demo") / "out"
-    cache = basis_cache
-    with pytest.MonkeyPatch.context() as mp:
-        mp.setenv("SPECPROC_CACHE_DIR", str(cache))
-        result = CliRunner().invoke(main, ["demo", "-o", str(out)], catch_exceptions=False)
-    assert result.exit_code == 0, result.output
-    return result.output, out
-
-
 def _fit_json(out: Path, key: str) -> dict:
-    return json.loads((out / key / "fit.json").read_text(encoding="utf-8"))
+    return json.loads((out / "scans" / f"{key}_svs" / "fit.json").read_text(encoding="utf-8"))
+
+
+@pytest.fixture(scope="module")
+def demo_run(demo_cohort) -> tuple[str, Path]:
+    """Output text and folder of the session's ``specproc demo`` run."""
+    return demo_cohort.output, demo_cohort.out
+
+
+@pytest.fixture(scope="module")
+def basis_cache(demo_cohort) -> Path:
+    """The basis cache folder of the session's demo run."""
+    return demo_cohort.cache
 
 
 def test_demo_prints_table_and_report_paths(demo_run: tuple[str, Path]) -> None:
     output, out = demo_run
     for key in SCANS:
         assert key in output
-        report = out / key / "report.html"
+        report = out / "scans" / f"{key}_svs" / "report.html"
         assert report.is_file()
         assert str(report.resolve()) in output
     for label in ("NAA/tCr", "tCho/tCr", "mI/tCr", "Glx/tCr", "tNAA mM", "SNR", "FWHM Hz"):
@@ -113,14 +107,14 @@ def test_demo_folder_is_small() -> None:
 
 
 def test_manifest_matches_files_and_truth() -> None:
-    from specproc.cli.demo import read_manifest
+    from specproc.batch import read_manifest
 
-    rows = read_manifest(DEMO / "manifest.tsv")
-    assert {f"{r['subject']}_{r['session']}" for r in rows} == set(SCANS)
-    for row in rows:
-        assert row["scan"].is_file() and row["water"].is_file()
-        truth = SCANS[f"{row['subject']}_{row['session']}"]
-        assert row["tissue"] == truth["tissue_fractions"]
+    entries = read_manifest(DEMO / "manifest.tsv")
+    assert {f"sub-{e.subject}_ses-{e.session}" for e in entries} == set(SCANS)
+    for entry in entries:
+        assert entry.scan_path.is_file() and entry.water_path.is_file()
+        truth = SCANS[f"sub-{entry.subject}_ses-{entry.session}"]
+        assert entry.tissue == truth["tissue_fractions"]
 
 
 def test_generator_reproduces_the_committed_files(

@@ -60,46 +60,54 @@ def files(tmp_path_factory):
     return root
 
 
-def test_fit_raw_scan_writes_three_outputs(files, tmp_path):
+def test_fit_raw_scan_writes_the_scan_folder(files, tmp_path):
+    from specproc.analysis import OUTPUT_FILES
+    from specproc.report.tables import RESULT_COLUMNS
+
     out = tmp_path / "out"
     res = CliRunner().invoke(main, ["fit", str(files / "raw.nii.gz"), "--basis",
                                     str(files / "basis.npz"), "-o", str(out)])
     assert res.exit_code == 0, res.output
-    assert sorted(p.name for p in out.iterdir()) == ["fit.json", "fit.png", "results.tsv"]
+    assert sorted(p.name for p in out.iterdir()) == sorted(OUTPUT_FILES.values())
     lines = (out / "results.tsv").read_text().splitlines()
-    assert lines[0].startswith("metabolite\tkind\tamplitude\tcrlb_sd\tcrlb_percent\tratio_tcr")
-    assert [ln.split("\t")[0] for ln in lines[1:]] == ["NAA", "Cr", "PCr", "GPC", "tNAA", "tCr",
+    assert lines[0] == "\t".join(RESULT_COLUMNS)
+    assert [ln.split("\t")[1] for ln in lines[1:]] == ["NAA", "Cr", "PCr", "GPC", "tNAA", "tCr",
                                                        "tCho"]
     doc = json.loads((out / "fit.json").read_text())
-    assert doc["inputs"]["preprocessed"] is True
-    assert doc["provenance"]  # the preprocessing steps are recorded
+    assert doc["preprocessing"]["steps"]  # the preprocessing steps are recorded
     assert {"numpy", "scipy", "specproc"} <= set(doc["versions"])
-    assert len(doc["result"]["parameter_covariance"]) == len(doc["result"]["parameter_names"])
-    assert doc["settings"]["range_ppm"] == [0.2, 4.2]
-    naa = doc["result"]["amplitudes"][0]
+    assert doc["settings"]["config"]["fit"]["range_ppm"] == [0.2, 4.2]
+    naa = doc["fit"]["amplitudes"][0]
     assert naa == pytest.approx(10.0 * 8 / 8, rel=0.05)  # averaged transients keep the scale
     assert (out / "fit.png").read_bytes()[:4] == b"\x89PNG"
+    assert "not a medical device" in (out / "report.html").read_text(encoding="utf-8")
 
 
-def test_auto_basis_uses_basis_for_scan_with_overrides(files, tmp_path, monkeypatch):
-    import specproc.basis
+def test_auto_basis_is_simulated_for_the_resolved_protocol(files, tmp_path, monkeypatch):
+    import specproc.protocol
 
-    seen = {}
+    seen = []
 
-    def fake_basis_for_scan(scan, **overrides):
-        seen.update(overrides, n_points=scan.n_points)
+    def fake_simulate(self, **_kw):
+        seen.append(self)
         return _basis()
 
-    monkeypatch.setattr(specproc.basis, "basis_for_scan", fake_basis_for_scan)
+    monkeypatch.setattr(specproc.protocol.Protocol, "simulate", fake_simulate)
     out = tmp_path / "auto"
     res = CliRunner().invoke(main, ["fit", str(files / "one.nii.gz"), "--te", "35",
-                                    "--sequence", "press", "-o", str(out)])
+                                    "--te1-ms", "12", "--sequence", "press", "-o", str(out)])
     assert res.exit_code == 0, res.output
-    assert seen["te_s"] == pytest.approx(0.035)
-    assert seen["sequence"] == "press"
-    assert seen["macromolecules"] is True  # short TE
-    assert seen["n_points"] == N
-    assert (out / "results.tsv").is_file()
+    (protocol,) = seen
+    assert protocol.te_s == pytest.approx(0.035) and protocol.sequence == "press"
+    assert protocol.te1_s == pytest.approx(0.012)
+    assert protocol.timing_sources == {"te1_s": "option"}
+    assert protocol.macromolecules is True  # short TE (common practice rule)
+    assert protocol.n_points == N
+    doc = json.loads((out / "fit.json").read_text())
+    assert doc["protocol"]["te1_s"] == pytest.approx(0.012)
+    assert doc["protocol"]["timing_sources"] == {"te1_s": "option"}
+    assert "TE1 12 ms, TE2 23 ms (option)" in res.output
+    assert "TE1 12 ms, TE2 23 ms (option)" in (out / "report.html").read_text(encoding="utf-8")
 
 
 @pytest.mark.parametrize("case, args, message", [
@@ -116,12 +124,3 @@ def test_bad_inputs_give_one_line_and_exit_2(files, tmp_path, case, args, messag
     assert len(lines) == 1 and lines[0].startswith("specproc: error:")
     assert message in lines[0]
     assert not out.exists() or not any(out.iterdir())
-
-
-def test_macromolecule_rule_matches_the_workflow():
-    # `specproc fit`, `specproc demo` and `specproc batch` must choose the same basis for the
-    # same scan: one short-TE rule (TE < SHORT_TE_S; common practice).
-    from specproc.cli import fit as fit_cli
-    from specproc.workflow import SHORT_TE_S
-
-    assert fit_cli.SHORT_TE_S == SHORT_TE_S

@@ -27,13 +27,13 @@ import numpy as np
 import pytest
 
 from specproc._paths import demo_dir
+from specproc.analysis import analyse_scan, write_scan_outputs
 from specproc.basis import simulate_basis
 from specproc.config import load_config
 from specproc.errors import InvalidInputError
 from specproc.io import load, save
 from specproc.report.html import escape
 from specproc.report.tables import config_to_toml
-from specproc.workflow import process_scan
 
 EVIL_PROTOCOL = '<b>bold</b><script>alert("protocol")</script> & more'
 EVIL_LOCATION = "<img src=x onerror=alert(1)>"
@@ -98,8 +98,9 @@ def report_dir(tmp_path_factory: pytest.TempPathFactory) -> Path:
             n_points=scan.n_points, metabolites=["NAA", "Cr", "PCr", "PCh", "GPC", "mI", "Glu",
                                                   "Gln", "Lac"],
         )
-    process_scan(root / "evil_svs.nii.gz", water_path=root / "evil_mrsref.nii.gz",
-                 out_dir=root / "out", basis=basis, title=EVIL_TITLE)
+    result = analyse_scan(root / "evil_svs.nii.gz", root / "evil_mrsref.nii.gz", basis=basis,
+                          title=EVIL_TITLE)
+    write_scan_outputs(result, root / "out")
     return root / "out"
 
 
@@ -207,7 +208,7 @@ def test_results_tsv_and_json_agree(report_dir: Path) -> None:
     assert ratio == pytest.approx(doc["quantification"]["ratios"]["NAA"], rel=1e-5)
     # phantom without tissue fractions: ratios only, said plainly
     assert doc["quantification"]["water_referenced"] is False
-    assert rows["NAA"][header.index("conc_molar_mm")] == "nan"
+    assert rows["NAA"][header.index("conc_molar_mm")] == "n/a"
     assert doc["versions"]["specproc"]
     assert doc["inputs"]["scan"]["sha256"]
     assert doc["quantification"]["formula"]["ratio"]
@@ -238,7 +239,7 @@ def test_escape_escapes_markup() -> None:
 
 def test_bad_tissue_fractions_are_rejected_before_any_output(tmp_path: Path) -> None:
     with pytest.raises(InvalidInputError, match="sum"):
-        process_scan(PHANTOM / "sub-phantom_ses-01_svs.nii.gz", out_dir=tmp_path / "o",
+        analyse_scan(PHANTOM / "sub-phantom_ses-01_svs.nii.gz",
                      tissue={"gm": 0.7, "wm": 0.7, "csf": 0.1})
     assert not (tmp_path / "o").exists()
 

@@ -11,8 +11,8 @@
     One self-contained page: the distribution of each metabolite over the cohort, the QC
     distributions (embedded PNG), and the flagged and failed scans.
 
-Numbers are written with 6 significant digits (``%.6g``), missing values as ``n/a`` (the BIDS
-spelling); there is no time stamp or absolute output path in the tables, so a run resumed
+Cells are written by :mod:`specproc._tsv` (6 significant digits, missing values as ``n/a``,
+the BIDS spelling); there is no time stamp or absolute output path in the tables, so a run resumed
 after a crash, a run with any number of workers and a run on a Dask cluster give the same
 bytes. The tables are written line by line (only the per-metabolite values needed for the
 figures are kept in memory: one float per scan and metabolite).
@@ -26,13 +26,14 @@ import io
 import math
 from collections.abc import Iterator, Mapping, Sequence
 from pathlib import Path
-from typing import Any, TextIO
+from typing import Any
 
 from specproc._atomic import atomic_path, write_text
+from specproc._tsv import TsvWriter
 from specproc.batch.manifest import ScanEntry
 from specproc.batch.task import DONE_NAME, QC_FIELDS, SUMMARY_NAME, read_json
 
-__all__ = ["COHORT_COLUMNS", "QC_COLUMNS", "format_cell", "write_cohort"]
+__all__ = ["COHORT_COLUMNS", "QC_COLUMNS", "write_cohort"]
 
 _ID_COLUMNS = ("scan_id", "subject", "session")
 #: Columns of ``cohort.tsv``.
@@ -51,24 +52,6 @@ CAUTION = (
     "Research use only. specproc is not a medical device; its results are not a diagnosis "
     "and must be interpreted by qualified professionals."
 )
-
-
-def format_cell(value: Any) -> str:
-    """Text of one TSV cell: ``%.6g`` numbers, ``n/a`` for missing, tabs/newlines as spaces."""
-    if value is None:
-        return "n/a"
-    if isinstance(value, bool):
-        return "true" if value else "false"
-    if isinstance(value, int):
-        return str(value)
-    if isinstance(value, float):
-        return f"{value:.6g}" if math.isfinite(value) else "n/a"
-    text = " ".join(str(value).split())
-    return text if text else "n/a"
-
-
-def _line(values: Sequence[Any]) -> str:
-    return "\t".join(format_cell(v) for v in values) + "\n"
 
 
 def _read_scan(folder: Path) -> dict[str, Any] | None:
@@ -134,10 +117,10 @@ def write_cohort(entries: Sequence[ScanEntry], out_dir: str | Path, *,
     with atomic_path(out / "cohort.tsv") as tmp_main, atomic_path(out / "cohort_qc.tsv") as tmp_qc:
         with open(tmp_main, "w", encoding="utf-8", newline="") as main, \
                 open(tmp_qc, "w", encoding="utf-8", newline="") as qc_file:
-            main.write(_line(COHORT_COLUMNS))
-            qc_file.write(_line(QC_COLUMNS))
+            main_table = TsvWriter(main, COHORT_COLUMNS)
+            qc_table = TsvWriter(qc_file, QC_COLUMNS)
             for entry, summary in _iter_scans(entries, out):
-                _write_scan(entry, summary, main, qc_file, counts, values, qc_values,
+                _write_scan(entry, summary, main_table, qc_table, counts, values, qc_values,
                             flagged)
     chosen: dict[str, list[float]] = {}
     for label, data in values.items():  # concentrations where any scan has them, else ratios
@@ -151,7 +134,7 @@ def write_cohort(entries: Sequence[ScanEntry], out_dir: str | Path, *,
     return counts
 
 
-def _write_scan(entry: ScanEntry, summary: Mapping[str, Any], main: TextIO, qc_file: TextIO,
+def _write_scan(entry: ScanEntry, summary: Mapping[str, Any], main: TsvWriter, qc_file: TsvWriter,
                 counts: dict[str, Any], values: dict[str, list[float]],
                 qc_values: dict[str, list[float]], flagged: list[tuple[str, str]]) -> None:
     status = str(summary.get("status", "failed"))
@@ -159,8 +142,8 @@ def _write_scan(entry: ScanEntry, summary: Mapping[str, Any], main: TextIO, qc_f
     qc = dict(summary.get("qc") or {})
     flags = [str(f) for f in summary.get("flags") or []]
     reason = _relative_reason(str(summary.get("reason") or ""), entry)
-    qc_file.write(_line((*ids, entry.scan_label, entry.water_label, status,
-                         *(qc.get(k) for k in QC_FIELDS), ";".join(flags), reason)))
+    qc_file.write((*ids, entry.scan_label, entry.water_label, status,
+                   *(qc.get(k) for k in QC_FIELDS), ";".join(flags), reason))
     if status == "failed":
         counts["failed"] += 1
         counts["failures"].append((entry.key, reason))
@@ -173,8 +156,8 @@ def _write_scan(entry: ScanEntry, summary: Mapping[str, Any], main: TextIO, qc_f
         if isinstance(v, int | float) and math.isfinite(v):
             qc_values[name].append(float(v))
     for row in summary.get("metabolites") or []:
-        main.write(_line((*ids, *(row.get(c) for c in COHORT_COLUMNS[3:-3]), status,
-                          qc.get("snr"), qc.get("naa_fwhm_hz"))))
+        main.write((*ids, *(row.get(c) for c in COHORT_COLUMNS[3:-3]), status,
+                    qc.get("snr"), qc.get("naa_fwhm_hz")))
         name = str(row.get("metabolite"))
         for column, unit in (("conc_molar_mm", "mM"), ("ratio_tcr", "/ tCr")):
             v = row.get(column)

@@ -23,6 +23,10 @@ column         required  meaning
 ``csf``        no        CSF volume fraction, 0-1 (give all three or none; they must sum to 1)
 ``te_ms``      no        echo time, ms (overrides the file's header)
 ``tm_ms``      no        STEAM mixing time, ms (overrides the header)
+``te1_ms``     no        PRESS first echo time, ms (TE2 = TE - TE1; overrides the configuration
+                         and the header, see :mod:`specproc.protocol`)
+``delays_ms``  no        semi-LASER inter-pulse delays d1..d5, ms, separated by ``;`` or
+                         spaces (overrides the configuration and the header)
 ``tr_ms``      no        repetition time, ms (overrides the header)
 ``sequence``   no        sequence name (``press``, ``steam``, ``semi-laser``, ...; overrides)
 =============  ========  ===================================================================
@@ -72,7 +76,7 @@ __all__ = [
 #: Columns a manifest may have; only ``scan`` is required.
 MANIFEST_COLUMNS: tuple[str, ...] = (
     "scan", "water", "subject", "session", "scan_id", "gm", "wm", "csf",
-    "te_ms", "tm_ms", "tr_ms", "sequence",
+    "te_ms", "tm_ms", "tr_ms", "sequence", "te1_ms", "delays_ms",
 )
 
 _SAFE = re.compile(r"[^A-Za-z0-9._+-]+")
@@ -101,6 +105,9 @@ class ScanEntry:
     overrides : mapping of str to Any
         Acquisition values that replace the file's header: ``te_s``, ``tm_s``, ``tr_s`` (s),
         ``sequence``.
+    timings : mapping of str to Any
+        Basis sub-timings of the manifest (``te1_s``, ``tm_s`` s, ``delays_s`` tuple of s),
+        the ``manifest`` source of :func:`specproc.protocol.resolve_protocol`.
     """
 
     key: str
@@ -112,6 +119,7 @@ class ScanEntry:
     session: str = ""
     tissue: Mapping[str, float] | None = None
     overrides: Mapping[str, Any] = field(default_factory=dict)
+    timings: Mapping[str, Any] = field(default_factory=dict)
 
     def describe(self) -> dict[str, Any]:
         """Plain dict of everything a result depends on besides file contents (for hashes)."""
@@ -123,6 +131,8 @@ class ScanEntry:
             "water": self.water_label,
             "tissue": None if self.tissue is None else dict(sorted(self.tissue.items())),
             "overrides": dict(sorted(self.overrides.items())),
+            **({"timings": {k: list(v) if isinstance(v, tuple) else v
+                            for k, v in sorted(self.timings.items())}} if self.timings else {}),
         }
 
 
@@ -291,6 +301,15 @@ def read_manifest(path: str | os.PathLike[str]) -> list[ScanEntry]:
                 overrides[column[:2] + "_s"] = _number(row[column], column, line, where) / 1e3
         if "sequence" in row:
             overrides["sequence"] = row["sequence"].strip()
+        timings: dict[str, Any] = {}
+        if "tm_s" in overrides:
+            timings["tm_s"] = overrides["tm_s"]
+        if "te1_ms" in row:
+            timings["te1_s"] = _number(row["te1_ms"], "te1_ms", line, where) / 1e3
+        if "delays_ms" in row:
+            cells = [c for c in re.split(r"[;,\s]+", row["delays_ms"].strip()) if c]
+            timings["delays_s"] = tuple(_number(c, "delays_ms", line, where) / 1e3
+                                        for c in cells)
         key = row.get("scan_id", "").strip()
         key = _SAFE.sub("-", key).strip("-.") if key else scan_key(
             subject=subject, session=session, scan_label=row["scan"].strip()
@@ -299,6 +318,7 @@ def read_manifest(path: str | os.PathLike[str]) -> list[ScanEntry]:
             key=key, scan_path=scan_path, water_path=water_path,
             scan_label=row["scan"].strip(), water_label=row.get("water", "").strip(),
             subject=subject, session=session, tissue=tissue, overrides=overrides,
+            timings=timings,
         ))
     if not entries:
         raise InvalidInputError("the manifest lists no scans", where)

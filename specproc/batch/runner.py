@@ -3,10 +3,11 @@
 Flow of :func:`run_batch`:
 
 1. For each entry (streamed, one scan in memory at a time) the parent reads the scan's header
-   to find its **protocol** (field, sequence, TE, TM, dwell time, number of points, receiver
-   centre, basis members) and hashes the inputs (SHA-256 of the scan and water files, of the
-   effective configuration and of the entry's manifest values, the protocol's basis key and
-   the specproc version). A scan that cannot be read fails here, with its reason.
+   to find its **protocol** (:func:`specproc.protocol.resolve_protocol`: field, sequence, TE
+   and sub-timings, dwell time, number of points, receiver centre, basis members) and hashes
+   the inputs (SHA-256 of the scan and water files, of the effective configuration and of
+   the entry's manifest values, the protocol's basis key and the specproc version). A scan
+   that cannot be read fails here, with its reason.
 2. A scan whose ``done.json`` records the same hashes is skipped (resume).
 3. The basis of each distinct protocol is simulated once, in the parent, and saved to
    ``OUTDIR/basis/<key>.npz`` (the simulation cache of :mod:`specproc.basis` is used too); the
@@ -21,8 +22,6 @@ Flow of :func:`run_batch`:
 from __future__ import annotations
 
 import contextlib
-import hashlib
-import json
 import os
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
@@ -30,21 +29,21 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+from specproc._hash import file_sha256, json_sha256
 from specproc.batch.manifest import ScanEntry
 from specproc.batch.task import (
     done_matches,
     failed_summary,
     failure_reason,
-    file_sha256,
     run_task,
     write_outcome,
 )
 from specproc.errors import InvalidInputError
+from specproc.protocol import Protocol
 
 __all__ = [
     "BatchSummary",
     "config_sha256",
-    "protocol_of",
     "run_batch",
 ]
 
@@ -79,112 +78,56 @@ class BatchSummary:
     out_dir: Path = Path()
     tables: dict[str, Path] = field(default_factory=dict)
 
-
-def _sha256_json(value: Any) -> str:
-    text = json.dumps(value, sort_keys=True, allow_nan=False, default=str)
-    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+    def counts_line(self) -> str:
+        """One line of the counts, as the commands print it."""
+        return (f"{self.n_scans} scans: {self.n_processed} processed, {self.n_skipped} already "
+                f"done, {self.n_flagged} flagged, {self.n_failed} failed")
 
 
 def config_sha256(config: Mapping[str, Any]) -> str:
     """SHA-256 of the canonical JSON of an effective configuration."""
-    return _sha256_json(config)
+    return json_sha256(config)
 
 
-def protocol_of(scan: Any, *, metabolites: Sequence[str] | None,
-                macromolecules: bool | None) -> dict[str, Any]:
-    """The simulation inputs of a scan's basis (what :func:`specproc.basis.basis_for_scan` uses).
-
-    Raises
-    ------
-    InvalidInputError
-        When the scan does not give its sequence, or TE (TM for STEAM).
-    """
-    from specproc.constants import field_from_larmor
-    from specproc.spins.sequences import normalise_sequence_name
-
-    where = scan.source
-    if not scan.sequence:
-        raise InvalidInputError(
-            "the scan does not say which sequence acquired it (add a sequence column to the "
-            "manifest)", where)
-    sequence = normalise_sequence_name(scan.sequence)
-    protocol: dict[str, Any] = {
-        "sequence": sequence,
-        "field_t": round(field_from_larmor(scan.spectrometer_mhz, scan.nucleus), 4),
-        "dwell_s": scan.dwell_s,
-        "n_points": scan.n_points,
-        "centre_ppm": scan.reference_ppm,
-        "metabolites": None if metabolites is None else list(metabolites),
-    }
-    if sequence != "pulse-acquire":
-        if scan.te_s is None:
-            raise InvalidInputError(
-                "the scan does not give its echo time (add a te_ms column to the manifest)",
-                where)
-        protocol["te_s"] = scan.te_s
-    if sequence == "steam":
-        if scan.tm_s is None:
-            raise InvalidInputError(
-                "the scan does not give its STEAM mixing time (add a tm_ms column)", where)
-        protocol["tm_s"] = scan.tm_s
-    if macromolecules is None:
-        from specproc.workflow import SHORT_TE_S
-
-        macromolecules = scan.te_s is not None and scan.te_s < SHORT_TE_S
-    protocol["macromolecules"] = bool(macromolecules)
-    return protocol
-
-
-def _protocol_key(protocol: Mapping[str, Any]) -> str:
-    from specproc import __version__
-    from specproc.basis import ENGINE_VERSION
-    from specproc.spins.systems import definitions_hash
-
-    return _sha256_json({"protocol": dict(protocol), "version": __version__,
-                         "engine": ENGINE_VERSION, "definitions": definitions_hash()})[:20]
-
-
-def _simulate(protocol: Mapping[str, Any], path: Path) -> None:
+def _simulate(protocol: Protocol, path: Path) -> None:
     """Simulate (or take from the cache) the basis of a protocol and save it to ``path``."""
-    from specproc.basis import simulate_basis
-
-    args = {k: v for k, v in protocol.items() if v is not None}
-    basis = simulate_basis(**args)
-    basis.save(path)
+    protocol.simulate().save(path)
 
 
 @dataclass(frozen=True)
 class _Prepared:
     entry: ScanEntry
     inputs: dict[str, Any]
-    protocol: dict[str, Any] | None
+    protocol: Protocol | None
     reason: str = ""
 
 
-def _prepare(entries: Sequence[ScanEntry], *, config_hash: str,
+def _prepare(entries: Sequence[ScanEntry], *, config: Mapping[str, Any], config_hash: str,
              metabolites: Sequence[str] | None, macromolecules: bool | None
              ) -> Iterator[_Prepared]:
     """Read each scan's header (one at a time) and hash its inputs."""
     from specproc import __version__
     from specproc.batch.task import apply_overrides
     from specproc.io import load
+    from specproc.protocol import resolve_protocol
 
     for entry in entries:
         inputs: dict[str, Any] = {
             "scan_sha256": None, "water_sha256": None, "config_sha256": config_hash,
-            "entry_sha256": _sha256_json(entry.describe()), "basis": None,
+            "entry_sha256": json_sha256(entry.describe()), "basis": None,
             "specproc_version": __version__,
         }
         try:
             inputs["scan_sha256"] = file_sha256(entry.scan_path)
             inputs["water_sha256"] = file_sha256(entry.water_path)
             scan = apply_overrides(load(entry.scan_path), entry.overrides)
-            protocol = protocol_of(scan, metabolites=metabolites, macromolecules=macromolecules)
+            protocol = resolve_protocol(scan, manifest=entry.timings, config=config,
+                                        metabolites=metabolites, macromolecules=macromolecules)
             del scan
         except Exception as exc:  # recorded as a failed scan
             yield _Prepared(entry, inputs, None, failure_reason(exc))
             continue
-        inputs["basis"] = _protocol_key(protocol)
+        inputs["basis"] = protocol.key()
         yield _Prepared(entry, inputs, protocol)
 
 
@@ -308,7 +251,7 @@ def _make_executor(workers: int, scheduler: str | None) -> _Executor:
 
 # ============================================================================ the batch
 
-def _prepare_basis(protocol: Mapping[str, Any], out: Path, key: str) -> Path | str:
+def _prepare_basis(protocol: Protocol, out: Path, key: str) -> Path | str:
     """Path of the protocol's basis file (simulated now if missing), or the failure reason."""
     path = out / "basis" / f"{key}.npz"
     if not path.is_file():
@@ -449,8 +392,7 @@ def run_batch(
         given, else every metabolite definition).
     macromolecules : bool, optional
         Add the macromolecule components to the basis (default: the rule of
-        :func:`specproc.workflow.process_scan`, i.e. when TE is below
-        :data:`specproc.workflow.SHORT_TE_S`).
+        :mod:`specproc.protocol`, TE below :data:`specproc.protocol.SHORT_TE_S`).
     retry_failed : bool
         Process again scans recorded as failed with unchanged inputs.
     progress : bool
@@ -488,7 +430,8 @@ def run_batch(
     bases: dict[str, Path | str] = {}
     try:
         with _single_threaded_children():
-            for prep in _prepare(entries, config_hash=config_hash, metabolites=metabolites,
+            for prep in _prepare(entries, config=cfg, config_hash=config_hash,
+                                 metabolites=metabolites,
                                  macromolecules=macromolecules):
                 folder = scan_folder(out, prep.entry.key)
                 previous = done_matches(folder, prep.inputs)
@@ -519,6 +462,7 @@ def run_batch(
                     else str(prep.entry.water_path),
                     "out_dir": str(folder),
                     "basis_path": str(bases[prep.inputs["basis"]]),
+                    "protocol": prep.protocol,
                     "config": cfg,
                     "tissue": None if prep.entry.tissue is None else dict(prep.entry.tissue),
                     "overrides": dict(prep.entry.overrides),

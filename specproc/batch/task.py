@@ -5,9 +5,10 @@ it pickles for local worker processes and for Dask). It
 
 1. removes a stale ``done.json`` of the scan folder (a crash from now on leaves the scan
    "not done");
-2. processes the scan through :func:`process_one`, i.e. the per-scan workflow
-   :func:`specproc.workflow.process_scan` with the protocol's shared basis (manifest overrides
-   of the header are applied to a copy of the scan, ``input_with_overrides.nii.gz``);
+2. processes the scan through :func:`process_one`, i.e. the per-scan analysis
+   :func:`specproc.analysis.analyse_scan` with the protocol's shared basis (manifest overrides
+   of the header are applied to the scan in memory) and
+   :func:`specproc.analysis.write_scan_outputs`;
 3. writes ``summary.json`` (the numbers the cohort tables are made of), then ``done.json``
    (the content hashes of the inputs). Both are atomic writes; ``done.json`` is written last.
 
@@ -21,7 +22,6 @@ from __future__ import annotations
 import hashlib
 import json
 import math
-import os
 import time
 from collections.abc import Mapping
 from pathlib import Path
@@ -35,7 +35,6 @@ __all__ = [
     "SUMMARY_NAME",
     "done_matches",
     "failure_reason",
-    "file_sha256",
     "process_one",
     "read_json",
     "run_task",
@@ -59,17 +58,6 @@ _BASIS_CACHE: dict[str, Any] = {}
 
 
 # ============================================================================ small helpers
-def file_sha256(path: str | os.PathLike[str] | None, *, chunk: int = 1 << 20) -> str | None:
-    """SHA-256 of a file's bytes, read in chunks (``None`` for no file)."""
-    if path is None:
-        return None
-    digest = hashlib.sha256()
-    with open(path, "rb") as handle:
-        while block := handle.read(chunk):
-            digest.update(block)
-    return digest.hexdigest()
-
-
 def read_json(path: Path) -> dict[str, Any] | None:
     """A JSON object from a file, or ``None`` when missing or unreadable."""
     try:
@@ -226,36 +214,29 @@ def summarise_fit_json(document: Mapping[str, Any]) -> dict[str, Any]:
     }
 
 
-def _with_overrides(task: Mapping[str, Any], folder: Path) -> Path:
-    """The scan file to process: the original, or a copy with the manifest overrides."""
-    overrides = task.get("overrides") or {}
-    if not overrides:
-        return Path(task["scan_path"])
-    from specproc.io import load, save
-
-    scan = apply_overrides(load(task["scan_path"]), overrides)
-    path = folder / "input_with_overrides.nii.gz"
-    save(scan, path)
-    return path
-
-
 def process_one(task: Mapping[str, Any]) -> dict[str, Any]:
-    """Process one scan into its folder with :func:`specproc.workflow.process_scan`.
+    """Analyse one scan into its folder (:func:`specproc.analysis.analyse_scan`, then
+    :func:`specproc.analysis.write_scan_outputs`) with the protocol's shared basis.
 
-    Returns its summary (raises on failure).
+    Manifest overrides of the header are applied to the scan in memory. Returns its summary
+    (raises on failure).
     """
-    from specproc.workflow import process_scan
+    from specproc.analysis import analyse_scan, write_scan_outputs
+    from specproc.io import load
 
     folder = Path(task["out_dir"])
     folder.mkdir(parents=True, exist_ok=True)
     basis = _load_basis(task["basis_path"])
-    process_scan(
-        _with_overrides(task, folder), water_path=task.get("water_path"), out_dir=folder,
-        config=task.get("config"), tissue=task.get("tissue"), basis=basis, title=task["key"],
+    scan = apply_overrides(load(task["scan_path"]), task.get("overrides") or {})
+    water = load(task["water_path"]) if task.get("water_path") else None
+    result = analyse_scan(
+        scan, water, tissue=task.get("tissue"), basis=basis, protocol=task.get("protocol"),
+        config=task.get("config"), title=task["key"],
     )
+    write_scan_outputs(result, folder)
     document = read_json(folder / "fit.json")
     if document is None:
-        raise RuntimeError("the per-scan workflow wrote no readable fit.json")
+        raise RuntimeError("the per-scan analysis wrote no readable fit.json")
     return summarise_fit_json(document)
 
 
@@ -266,8 +247,9 @@ def run_task(task: Mapping[str, Any]) -> dict[str, Any]:
     ----------
     task : mapping
         ``key``, ``scan_path``, ``water_path`` (or None), ``out_dir``, ``basis_path``,
-        ``config`` (dict), ``tissue`` (dict or None), ``overrides`` (dict), ``inputs`` (the
-        hashes recorded in ``done.json``).
+        ``protocol`` (the :class:`~specproc.protocol.Protocol` of the basis), ``config``
+        (dict), ``tissue`` (dict or None), ``overrides`` (dict), ``inputs`` (the hashes
+        recorded in ``done.json``).
 
     Returns
     -------

@@ -70,10 +70,7 @@ def batch(source: Path, out_dir: Path, workers: int | None, scheduler: str | Non
         metabolites=names, macromolecules=macromolecules, retry_failed=retry_failed,
         progress=not no_progress, title=f"specproc cohort: {source.name}",
     )
-    click.echo(
-        f"{summary.n_scans} scans: {summary.n_processed} processed, {summary.n_skipped} "
-        f"already done, {summary.n_flagged} flagged, {summary.n_failed} failed"
-    )
+    click.echo(summary.counts_line())
     for key, reason in summary.failures:
         click.echo(f"  failed: {key}: {reason}", err=True)
     click.echo(f"cohort tables: {summary.tables['cohort.tsv']}, "

@@ -1,193 +1,160 @@
-"""``specproc fit SCAN [--water REF] [--basis FILE | auto] [--config FILE] -o OUTDIR``.
+"""``specproc fit SCAN [--water REF] [--gm F --wm F --csf F] [--basis FILE | auto] -o OUTDIR``.
 
-Fits one spectrum with :func:`specproc.fit.fit_spectrum` and writes into OUTDIR:
+Analyses one scan exactly as a cohort run analyses each of its scans: load, then
+:func:`specproc.analysis.analyse_scan` (preprocessing, basis, fit, quantification, QC), then
+:func:`specproc.analysis.write_scan_outputs` into OUTDIR (``results.tsv``, ``fit.json``,
+``config.toml``, ``fit.png``, ``fit.pdf``, ``preprocess.png``, ``report.html``). With a water
+reference and the voxel's tissue fractions the results are water-referenced concentrations;
+otherwise ratios to tCr.
 
-* ``results.tsv``: one row per basis member and per combined sum (tNAA, tCr, tCho, Glx) with
-  ``metabolite``, ``kind``, ``amplitude``, ``crlb_sd``, ``crlb_percent``, ``ratio_tcr``, ``flag``;
-* ``fit.json``: every parameter, the covariance, the settings, the inputs and their provenance,
-  the library versions;
-* ``fit.png``: data, fit, baseline, residual and the contribution of each member.
-
-A scan with several transients or coils is first run through the configured preprocessing
-(:func:`specproc.preprocess.pipeline.run_pipeline`, with the water reference if given). Without
-``--basis`` (or with ``--basis auto``) the basis is simulated, and cached, from the scan's
-header (field, sequence, TE; ``--field``, ``--te``, ``--sequence`` override). All three files
-are rendered before the first one is written, and each is written atomically.
+Without ``--basis`` (or with ``--basis auto``) the basis is simulated, and cached, for the
+scan's protocol (:mod:`specproc.protocol`). ``--te-ms``, ``--tr-ms``, ``--sequence`` and
+``--tm-ms`` replace the header's values (as the manifest columns of ``specproc batch`` do);
+``--te1-ms``, ``--tm-ms`` and ``--delays-ms`` are the basis sub-timings with the highest
+precedence; ``--field`` sets the field of the simulated basis only.
 """
 
 from __future__ import annotations
 
-import datetime as _dt
-import platform
 from pathlib import Path
 from typing import Any
 
 import click
 
 from specproc.errors import InvalidInputError
+from specproc.protocol import SHORT_TE_S
 
-__all__ = ["COMMANDS", "fit_command", "provenance_versions"]
-
-#: Echo times below this value get the macromolecule/lipid members by default, s (common
-#: practice: macromolecules are visible at short TE). The same rule as
-#: :data:`specproc.workflow.SHORT_TE_S` (``specproc demo`` and ``specproc batch``); kept here as
-#: a literal so that the command-line help does not import the workflow.
-SHORT_TE_S = 0.06
+__all__ = ["COMMANDS", "fit_command", "tissue_option"]
 
 
-def provenance_versions() -> dict[str, str]:
-    """Versions of Python and of the libraries that shape the result."""
-    import matplotlib
-    import numpy
-    import scipy
-
-    from specproc import __version__
-
-    return {
-        "specproc": __version__,
-        "python": platform.python_version(),
-        "numpy": numpy.__version__,
-        "scipy": scipy.__version__,
-        "matplotlib": matplotlib.__version__,
-    }
+def _ms(value: float | None, option: str) -> float | None:
+    if value is None:
+        return None
+    if not value >= 0:
+        raise InvalidInputError(f"{option} must be a non-negative time in ms, got {value:g}")
+    return value * 1e-3
 
 
-def _basis_summary(basis: Any, source: str) -> dict[str, Any]:
-    return {
-        "source": source,
-        "names": list(basis.names),
-        "kinds": list(basis.kinds),
-        "protons": list(basis.protons),
-        "sequence": basis.sequence,
-        "timings_s": dict(basis.timings_s),
-        "spectrometer_mhz": basis.spectrometer_mhz,
-        "field_t": basis.field_t,
-        "dwell_s": basis.dwell_s,
-        "n_points": basis.n_points,
-        "centre_ppm": basis.centre_ppm,
-        "definitions_hash": basis.definitions_hash,
-        "version": basis.version,
-    }
+def _delays(text: str | None) -> tuple[float, ...] | None:
+    if text is None:
+        return None
+    cells = [c for c in text.replace(";", ",").replace(" ", ",").split(",") if c]
+    try:
+        values = [float(c) for c in cells]
+    except ValueError:
+        raise InvalidInputError(
+            f"--delays-ms must be numbers separated by commas, got {text!r}") from None
+    return tuple(_ms(v, "--delays-ms") for v in values)  # type: ignore[misc]
 
 
-def _get_basis(choice: str | None, scan: Any, *, field_t: float | None, te_ms: float | None,
-               sequence: str | None, macromolecules: bool | None) -> tuple[Any, str]:
-    from specproc.basis import BasisSet, basis_for_scan
-
-    if choice and choice != "auto":
-        path = Path(choice)
-        if not path.is_file():
-            raise InvalidInputError("basis file not found", path)
-        return BasisSet.load(path), str(path)
-    overrides: dict[str, Any] = {}
-    if field_t is not None:
-        if not field_t > 0:
-            raise InvalidInputError(f"--field must be positive, got {field_t:g}")
-        overrides["field_t"] = field_t
-    if te_ms is not None:
-        if not te_ms >= 0:
-            raise InvalidInputError(f"--te must be a non-negative time in ms, got {te_ms:g}")
-        overrides["te_s"] = te_ms * 1e-3
-    if sequence:
-        overrides["sequence"] = sequence
-    te = overrides.get("te_s", scan.te_s)
-    if macromolecules is None:
-        macromolecules = te is not None and te < SHORT_TE_S
-    overrides["macromolecules"] = macromolecules
-    return basis_for_scan(scan, **overrides), "simulated (specproc.basis.basis_for_scan)"
+def tissue_option(gm: float | None, wm: float | None, csf: float | None
+                  ) -> dict[str, float] | None:
+    """Tissue fractions from ``--gm/--wm/--csf`` (all three or none)."""
+    given = {k: v for k, v in (("gm", gm), ("wm", wm), ("csf", csf)) if v is not None}
+    if not given:
+        return None
+    if len(given) != 3:
+        raise InvalidInputError(
+            f"give all of --gm, --wm and --csf or none (found {', '.join('--' + k for k in given)})"
+        )
+    return given
 
 
 @click.command("fit")
 @click.argument("scan_file", metavar="SCAN", type=click.Path(dir_okay=False, path_type=Path))
 @click.option("--water", "water_file", metavar="REF",
               type=click.Path(dir_okay=False, path_type=Path),
-              help="Water reference (used by the preprocessing of a raw scan).")
+              help="Unsuppressed water reference: preprocessing and water-referenced "
+                   "concentrations (with --gm/--wm/--csf).")
+@click.option("--gm", type=float, default=None, help="Grey-matter volume fraction of the voxel.")
+@click.option("--wm", type=float, default=None, help="White-matter volume fraction.")
+@click.option("--csf", type=float, default=None, help="CSF volume fraction (the three sum to 1).")
 @click.option("--basis", "basis_choice", metavar="FILE|auto", default=None,
               help="Basis set file (.npz from `specproc basis simulate`), or 'auto' (default): "
-                   "simulate it from the scan's header.")
+                   "simulate it for the scan's protocol.")
 @click.option("--config", "config_file", metavar="FILE",
               type=click.Path(dir_okay=False, path_type=Path),
-              help="TOML configuration (see `specproc config show`; the [fit] table).")
+              help="TOML configuration (see `specproc config show`).")
 @click.option("--field", "field_t", type=float, default=None,
               help="Field strength of the simulated basis, T (default: from the scan).")
-@click.option("--te", "te_ms", type=float, default=None,
-              help="Echo time of the simulated basis, ms (default: from the scan).")
-@click.option("--sequence", default=None,
-              help="Sequence of the simulated basis (default: from the scan).")
+@click.option("--te-ms", "--te", "te_ms", type=float, default=None,
+              help="Echo time, ms (replaces the header's).")
+@click.option("--tr-ms", "tr_ms", type=float, default=None,
+              help="Repetition time, ms (replaces the header's).")
+@click.option("--sequence", default=None, help="Sequence name (replaces the header's).")
+@click.option("--te1-ms", "te1_ms", type=float, default=None,
+              help="PRESS first echo time, ms (TE2 = TE - TE1; default: manifest, "
+                   "[protocol] te1_s, header, else TE/2).")
+@click.option("--tm-ms", "tm_ms", type=float, default=None,
+              help="STEAM mixing time, ms (replaces the header's).")
+@click.option("--delays-ms", "delays_ms", default=None, metavar="D1,D2,D3,D4,D5",
+              help="semi-LASER inter-pulse delays, ms (default: [protocol] delays_s, header, "
+                   "else TE/8, TE/4, TE/4, TE/4, TE/8).")
 @click.option("--macromolecules/--no-macromolecules", default=None,
               help="Add macromolecule/lipid members to a simulated basis "
                    f"(default: when TE < {SHORT_TE_S * 1e3:g} ms).")
+@click.option("--title", default=None, help="Label of the scan (default: the file name).")
 @click.option("-o", "--output", "out_dir", required=True, metavar="OUTDIR",
               type=click.Path(file_okay=False, path_type=Path),
               help="Output folder (created if needed).")
-def fit_command(scan_file: Path, water_file: Path | None, basis_choice: str | None,
-                config_file: Path | None, field_t: float | None, te_ms: float | None,
-                sequence: str | None, macromolecules: bool | None, out_dir: Path) -> None:
-    """Fit SCAN as a linear combination of basis signals; write results.tsv, fit.json, fit.png."""
-    from specproc._atomic import write_bytes, write_text
-    from specproc._json import dumps
-    from specproc.config import load_config
-    from specproc.fit import fit_spectrum, result_to_dict
+def fit_command(scan_file: Path, water_file: Path | None, gm: float | None, wm: float | None,
+                csf: float | None, basis_choice: str | None, config_file: Path | None,
+                field_t: float | None, te_ms: float | None, tr_ms: float | None,
+                sequence: str | None, te1_ms: float | None, tm_ms: float | None,
+                delays_ms: str | None, macromolecules: bool | None, title: str | None,
+                out_dir: Path) -> None:
+    """Analyse SCAN: preprocess, fit, quantify, QC; write results, fit.json and report.html."""
+    from specproc.analysis import analyse_scan, resolve_config, write_scan_outputs
+    from specproc.batch.task import apply_overrides
     from specproc.io import load
-    from specproc.report.figures import figure_png_bytes
-    from specproc.report.fit_figure import plot_fit
-    from specproc.report.fit_text import results_tsv_text
+    from specproc.protocol import resolve_protocol
+    from specproc.report.messages import fit_flag_sentence
 
     if out_dir.exists() and not out_dir.is_dir():
         raise InvalidInputError("the output must be a folder", out_dir)
-    config = load_config(config_file)
-    scan = load(scan_file)
+    if field_t is not None and not field_t > 0:
+        raise InvalidInputError(f"--field must be positive, got {field_t:g}")
+    tissue = tissue_option(gm, wm, csf)
+    overrides: dict[str, Any] = {}
+    for key, value, option in (("te_s", te_ms, "--te-ms"), ("tr_s", tr_ms, "--tr-ms"),
+                               ("tm_s", tm_ms, "--tm-ms")):
+        if value is not None:
+            overrides[key] = _ms(value, option)
+    if sequence:
+        overrides["sequence"] = sequence
+    timings = {"te1_s": _ms(te1_ms, "--te1-ms"), "tm_s": overrides.get("tm_s"),
+               "delays_s": _delays(delays_ms)}
+    config, _ = resolve_config(config_file)
+    scan = apply_overrides(load(scan_file), overrides)
     water = load(water_file) if water_file is not None else None
-    notes: list[str] = []
-    preprocessed = False
-    if scan.dims:
-        from specproc.preprocess.pipeline import run_pipeline
-
-        pre = run_pipeline(scan, water=water, config=config)
-        scan = pre.scan.replace(source=scan.source)
-        notes.extend(pre.notes)
-        preprocessed = True
-    elif water is not None:
-        notes.append("the scan holds one FID and is fitted as it is; the water reference "
-                     "is not used by the fit")
-    basis, basis_source = _get_basis(basis_choice, scan, field_t=field_t, te_ms=te_ms,
-                                     sequence=sequence, macromolecules=macromolecules)
-    result = fit_spectrum(scan, basis, config=config)
-
-    document = {
-        "created": _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
-        "program": "specproc fit",
-        "versions": provenance_versions(),
-        "inputs": {
-            "scan": str(scan_file),
-            "water": None if water_file is None else str(water_file),
-            "config": None if config_file is None else str(config_file),
-            "preprocessed": preprocessed,
-        },
-        "scan": scan.summary(),
-        "provenance": list(scan.provenance),
-        "basis": _basis_summary(basis, basis_source),
-        "settings": config.get("fit", {}),
-        "notes": notes,
-        "result": result_to_dict(result),
-    }
-    # render all three before writing any
-    json_text = dumps(document, indent=1, allow_nan=False)
-    png = figure_png_bytes(plot_fit(result, title=f"{scan_file.name}: linear-combination fit"))
-    tsv_text = results_tsv_text(result)
-    out_dir.mkdir(parents=True, exist_ok=True)
-    write_text(out_dir / "results.tsv", tsv_text)
-    write_text(out_dir / "fit.json", json_text + "\n")
-    write_bytes(out_dir / "fit.png", png)
-    for note in notes:
+    basis = protocol = None
+    if basis_choice and basis_choice != "auto":
+        basis = Path(basis_choice)
+        if not basis.is_file():
+            raise InvalidInputError("basis file not found", basis)
+    else:
+        protocol = resolve_protocol(scan, field_t=field_t, option=timings, config=config,
+                                    macromolecules=macromolecules)
+    result = analyse_scan(scan, water, tissue=tissue, basis=basis, protocol=protocol,
+                          config=config_file, title=title)
+    files = write_scan_outputs(result, out_dir)
+    for note in result.notes:
         click.echo(f"specproc: note: {note}", err=True)
-    from specproc.report.messages import fit_flag_sentence
-
-    for flag in result.flags:
-        click.echo(f"specproc: warning: {fit_flag_sentence(flag, result)}", err=True)
-    click.echo(result.to_text().rstrip())
-    for name in ("results.tsv", "fit.json", "fit.png"):
-        click.echo(f"wrote {out_dir / name}")
+    for flag in result.fit.flags:
+        click.echo(f"specproc: warning: {fit_flag_sentence(flag, result.fit)}", err=True)
+    for flag in result.qc.flags:
+        click.echo(f"specproc: QC flag: {flag.message}", err=True)
+    click.echo(result.fit.to_text().rstrip())
+    if result.protocol is not None and result.protocol.timing_text():
+        click.echo(f"basis timing: {result.protocol.timing_text()}")
+    conc = result.conc_mm
+    if conc:
+        click.echo("water-referenced concentrations (mM of GM+WM tissue): " + ", ".join(
+            f"{k} {v:.2f}" for k, v in conc.items()))
+    click.echo(result.quantification.statement)
+    for path in files.values():
+        click.echo(f"wrote {path}")
+    click.echo("Research use only; not a medical device.")
 
 
 COMMANDS = [fit_command]

@@ -29,18 +29,12 @@ from pathlib import Path
 
 import click
 
-from specproc.batch.cohort import format_cell
+from specproc._tsv import format_cell, tsv_text
 
 __all__ = ["COMMANDS"]
 
 _QA_COLUMNS = ("scan", "phantom", "session", "temperature_c", "temperature_nominal_c",
                "water_ppm", "singlet_ppm", "snr", "naa_fwhm_hz", "water_fwhm_hz", "notes")
-
-
-def _tsv(header: tuple[str, ...], rows: list[tuple]) -> str:
-    lines = ["\t".join(header)]
-    lines += ["\t".join(format_cell(v) for v in row) for row in rows]
-    return "\n".join(lines) + "\n"
 
 
 def _water_beside(scan: Path) -> Path | None:
@@ -133,13 +127,13 @@ def phantom(scans: tuple[Path, ...], nominal_file: Path, water_files: tuple[Path
     qa_rows = [(m.scan, m.phantom, m.session, m.temperature_c, m.temperature_nominal_c,
                 m.water_ppm, m.singlet_ppm, m.snr, m.naa_fwhm_hz, m.water_fwhm_hz,
                 "; ".join(m.notes)) for m in measurements]
-    write_text(out_dir / "phantom_recovery.tsv", _tsv(
+    write_text(out_dir / "phantom_recovery.tsv", tsv_text(
         ("scan", "phantom", "session", "compound", "nominal_mm", "measured_mm",
          "recovery_percent", "crlb_percent"), recovery_rows))
-    write_text(out_dir / "phantom_linearity.tsv", _tsv(
+    write_text(out_dir / "phantom_linearity.tsv", tsv_text(
         ("compound", "slope", "intercept_mm", "r_squared", "n"),
         [(k, v["slope"], v["intercept_mm"], v["r_squared"], v["n"]) for k, v in lin.items()]))
-    write_text(out_dir / "phantom_qa.tsv", _tsv(_QA_COLUMNS, qa_rows))
+    write_text(out_dir / "phantom_qa.tsv", tsv_text(_QA_COLUMNS, qa_rows))
     write_bytes(out_dir / "phantom_trends.png", _figure(measurements))
 
     click.echo(f"thermometry: {nominal.thermometry.formula()}")

@@ -20,8 +20,10 @@ Reading keeps the JSON object verbatim in ``Scan.header``; writing starts from t
 (when the Scan came from a NIfTI-MRS file), brings the standard keys up to date from the Scan's
 fields and stores the provenance in ``ProcessingApplied``. specproc keeps the chemical shift of
 the receiver centre, when it is not the nucleus default, in the user key
-``specproc_centre_ppm``. The time-domain data are read with ``np.asanyarray(img.dataobj)``
-(``get_fdata`` would drop the imaginary part).
+``specproc_centre_ppm``, and the sequence sub-timings (:attr:`specproc.data.Scan.timings`) in
+the user key ``specproc_timings`` = ``{"Value": {"te1_s": ..., "tm_s": ..., "delays_s": [...]},
+"Description": "..."}`` (only the members that apply). The time-domain data are read with
+``np.asanyarray(img.dataobj)`` (``get_fdata`` would drop the imaginary part).
 
 References
 ----------
@@ -53,6 +55,7 @@ from specproc.io._util import (
     reader_boundary,
     require_file,
 )
+from specproc.protocol import TIMINGS_HEADER_KEY, parse_timings
 
 __all__ = [
     "DEFAULT_DIM_TAGS",
@@ -208,6 +211,7 @@ def _scan_from_image(img: Any, p: Path, *, n_bytes: int) -> Scan:
         centre = _finite(centre, "specproc_centre_ppm", p)
     seq_text = meta.get("SequenceName")
     protocol = meta.get("ProtocolName")
+    timings = _timings(meta.get(TIMINGS_HEADER_KEY), p)
     return Scan(
         data=data,
         dwell_s=dwell_s,
@@ -219,6 +223,7 @@ def _scan_from_image(img: Any, p: Path, *, n_bytes: int) -> Scan:
         tr_s=optional_time_s(meta.get("RepetitionTime"), "RepetitionTime", p),
         tm_s=optional_time_s(meta.get("MixingTime"), "MixingTime", p),
         sequence=normalise_sequence_name(seq_text),
+        timings=timings,
         protocol=str(protocol) if protocol is not None else None,
         water_suppressed=water,
         dim_headers=dim_headers,
@@ -227,6 +232,16 @@ def _scan_from_image(img: Any, p: Path, *, n_bytes: int) -> Scan:
         source=str(p),
         format="nifti-mrs",
     )
+
+
+def _timings(raw: Any, p: Path) -> dict[str, Any]:
+    """The ``Value`` of the ``specproc_timings`` user key, checked (empty when absent)."""
+    if raw is None:
+        return {}
+    if not isinstance(raw, dict) or not isinstance(raw.get("Value"), dict):
+        raise InvalidInputError(
+            f"{TIMINGS_HEADER_KEY} must be an object with a 'Value' object", p)
+    return parse_timings(raw["Value"], where=p, what=TIMINGS_HEADER_KEY)
 
 
 def _json_extension(hdr: Any, p: Path) -> dict[str, Any]:
@@ -360,6 +375,14 @@ def _json_header(scan: Scan) -> dict[str, Any]:
         meta["specproc_centre_ppm"] = scan.centre_ppm
     else:
         meta.pop("specproc_centre_ppm", None)
+    if scan.timings:
+        meta[TIMINGS_HEADER_KEY] = {
+            "Value": {k: list(v) if isinstance(v, tuple) else v for k, v in scan.timings.items()},
+            "Description": "sequence sub-timings in s (specproc): PRESS te1_s (TE2 = TE - TE1), "
+                           "STEAM tm_s, semi-LASER delays_s d1..d5",
+        }
+    else:
+        meta.pop(TIMINGS_HEADER_KEY, None)
     for n, tag in enumerate(scan.dims, start=5):
         meta[f"dim_{n}"] = tag
         extra = scan.dim_headers.get(tag, {})

@@ -30,9 +30,9 @@ from typing import Any, Literal
 import numpy as np
 from scipy.optimize import least_squares
 
+from specproc._versions import library_versions
 from specproc.data import Scan
 from specproc.errors import InvalidInputError
-from specproc.preprocess._versions import library_versions
 from specproc.preprocess.transform import ppm_axis, ppm_window_mask, to_fid, to_spectrum
 
 __all__ = [

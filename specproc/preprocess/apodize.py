@@ -26,9 +26,9 @@ from typing import Literal
 import numpy as np
 from nmrglue.process import proc_base
 
+from specproc._versions import library_versions
 from specproc.data import Scan
 from specproc.errors import InvalidInputError
-from specproc.preprocess._versions import library_versions
 
 __all__ = [
     "apodize_exponential",

@@ -40,9 +40,9 @@ import numpy as np
 from nmrglue.process import proc_autophase
 from scipy.signal import find_peaks
 
+from specproc._versions import library_versions
 from specproc.data import Scan
 from specproc.errors import InvalidInputError
-from specproc.preprocess._versions import library_versions
 from specproc.preprocess.transform import ppm_axis, ppm_window_mask, to_fid, to_spectrum
 
 __all__ = [

@@ -28,9 +28,9 @@ from dataclasses import dataclass
 import numpy as np
 import scipy.linalg
 
+from specproc._versions import library_versions
 from specproc.data import Scan
 from specproc.errors import InvalidInputError
-from specproc.preprocess._versions import library_versions
 from specproc.preprocess.transform import hz_to_ppm
 
 __all__ = [

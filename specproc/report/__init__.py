@@ -7,7 +7,7 @@ data URIs) and :mod:`.html` (the report page, every data string escaped).
 
 from specproc.report.figures import figure_pdf_bytes, figure_png_bytes, png_data_uri
 from specproc.report.html import CAUTION_TEXT, escape, render_report, write_report
-from specproc.report.tables import config_to_toml, results_rows, rows_to_tsv
+from specproc.report.tables import config_to_toml, results_rows
 
 __all__ = [
     "CAUTION_TEXT",
@@ -18,6 +18,5 @@ __all__ = [
     "png_data_uri",
     "render_report",
     "results_rows",
-    "rows_to_tsv",
     "write_report",
 ]

@@ -1,4 +1,4 @@
-"""Text renderings of a fit alone: the terminal summary and the fit-only TSV table.
+"""Text rendering of a fit alone: the terminal summary (tables go through :mod:`specproc._tsv`).
 
 Numbers follow :func:`specproc.report.tables.sig`: three significant figures for amplitudes and
 ratios, two for error bounds in %, ``—`` where a bound is undefined. Flags are written as
@@ -7,32 +7,12 @@ sentences (:mod:`specproc.report.messages`).
 
 from __future__ import annotations
 
-import os
 from typing import Any
 
-from specproc._atomic import write_text
 from specproc.report.messages import crlb_text, fit_flag_sentence, fit_status_sentence
-from specproc.report.tables import rows_to_tsv, sig
+from specproc.report.tables import sig
 
-__all__ = ["FIT_COLUMNS", "result_to_text", "results_tsv_text", "write_results_tsv"]
-
-#: Columns of the fit-only table (one row per member and per combined sum).
-FIT_COLUMNS: tuple[str, ...] = (
-    "metabolite", "kind", "amplitude", "crlb_sd", "crlb_percent", "ratio_tcr", "flag",
-)
-
-
-def results_tsv_text(result: Any) -> str:
-    """:func:`specproc.fit.results_table` as tab-separated values (header line first)."""
-    from specproc.fit import results_table
-
-    return rows_to_tsv(results_table(result), FIT_COLUMNS)
-
-
-def write_results_tsv(result: Any, path: str | os.PathLike[str]) -> None:
-    """Write :func:`results_tsv_text` to ``path`` (atomic write)."""
-    write_text(path, results_tsv_text(result))
-
+__all__ = ["result_to_text"]
 
 def result_to_text(result: Any) -> str:
     """Plain-text summary: one line on the fit, a table of members, then the notes in words."""

@@ -26,7 +26,6 @@ __all__ = [
     "processing_rows",
     "qc_rows",
     "results_rows",
-    "rows_to_tsv",
     "sig",
 ]
 
@@ -164,23 +163,6 @@ def results_rows(fit: Any, quant: Any, qc: Any, *, scan_label: str) -> list[dict
     return out
 
 
-def _tsv_cell(value: Any) -> str:
-    if isinstance(value, bool):
-        return "true" if value else "false"
-    if isinstance(value, float | np.floating):
-        v = float(value)
-        return "nan" if not math.isfinite(v) else f"{v:.6g}"
-    text = "" if value is None else str(value)
-    return text.replace("\t", " ").replace("\r", " ").replace("\n", " ")
-
-
-def rows_to_tsv(rows: Sequence[Mapping[str, Any]], columns: Sequence[str] = RESULT_COLUMNS) -> str:
-    """Tab-separated text of ``rows`` with a header line (tabs/newlines in cells → spaces)."""
-    lines = ["\t".join(columns)]
-    lines += ["\t".join(_tsv_cell(row.get(c)) for c in columns) for row in rows]
-    return "\n".join(lines) + "\n"
-
-
 def qc_rows(qc: Any) -> list[dict[str, str]]:
     """QC measures with their limits, a status sentence and the definition of each."""
     from specproc.qc import QC_DEFINITIONS, QCThresholds
@@ -305,6 +287,8 @@ def methods_rows(
     add(ana, "basis", f"{basis_info.get('origin', '')}; {basis_info.get('sequence', '')} "
         f"{', '.join(f'{k} {v * 1e3:g} ms' for k, v in basis_info.get('timings_s', {}).items())}"
         f"; {len(basis_info.get('names', []))} members")
+    if basis_info.get("timing"):
+        add(ana, "basis sub-timing (source)", basis_info["timing"])
     add(ana, "fitting model", (
         f"linear combination over {fit.fit_range_ppm[0]:g}-{fit.fit_range_ppm[1]:g} ppm, "
         "shared Lorentzian damping per group, shared Gaussian broadening, zero/first-order "

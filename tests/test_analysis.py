@@ -1,7 +1,8 @@
-"""specproc.workflow: the water amplitude measurement, settings resolution, a ratios-only run."""
+"""specproc.analysis: the water amplitude measurement, settings resolution, a ratios-only run."""
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
 from pathlib import Path
@@ -9,14 +10,15 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from specproc._versions import software_versions
+from specproc.analysis import ScanResult, analyse_scan, resolve_config, write_scan_outputs
 from specproc.basis import BasisSet
 from specproc.config import load_config
 from specproc.constants import larmor_mhz
 from specproc.data import Scan
 from specproc.errors import InvalidInputError
 from specproc.io import save
-from specproc.quantify import NO_WATER_STATEMENT
-from specproc.workflow import process_scan, resolve_config, software_versions, water_amplitude
+from specproc.quantify import NO_WATER_STATEMENT, water_amplitude
 
 MHZ = larmor_mhz(3.0)
 DWELL = 5e-4
@@ -75,7 +77,7 @@ def test_resolve_config_sources(tmp_path: Path) -> None:
     user = tmp_path / "user.toml"
     user.write_text("[fit]\nbaseline_knot_ppm = 0.5\n", encoding="utf-8")
     cfg, source = resolve_config(user)
-    assert cfg["fit"]["baseline_knot_ppm"] == 0.5 and str(user) in source
+    assert cfg["fit"]["baseline_knot_ppm"] == 0.5 and user.name in source
     cfg, _ = resolve_config({"fit": {"range_ppm": [0.5, 4.0]}})
     assert cfg["fit"]["range_ppm"] == [0.5, 4.0]
     with pytest.raises(InvalidInputError):
@@ -111,13 +113,23 @@ def test_averaged_scan_without_water_gives_ratios_only(tmp_path: Path) -> None:
     scan = Scan(fid.astype(np.complex64), dwell_s=DWELL, spectrometer_mhz=MHZ, te_s=0.03,
                 tr_s=2.0, sequence="press", protocol="three singlets")
     save(scan, tmp_path / "avg.nii.gz")
-    outcome = process_scan(tmp_path / "avg.nii.gz", out_dir=tmp_path / "out", basis=basis,
-                           config={"preprocess": {"water_removal": {"enabled": False}}})
-    assert outcome.statement == NO_WATER_STATEMENT
-    assert outcome.conc_mm is None and not outcome.water_referenced
+    result = analyse_scan(tmp_path / "avg.nii.gz", basis=basis,
+                          config={"preprocess": {"water_removal": {"enabled": False}}})
+    assert isinstance(result, ScanResult)
+    assert result.quantification.statement == NO_WATER_STATEMENT
+    assert result.conc_mm is None and not result.water_referenced
+    assert result.quantification.ratios["NAA"] == pytest.approx(1.5, rel=0.02)
+    assert result.quantification.ratios["PCh"] == pytest.approx(0.25, rel=0.05)
+    assert result.title == "avg"
+    text = repr(result)
+    assert text.startswith("ScanResult('avg'") and len(text) < 400
+    assert "<table>" in result._repr_html_()
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        result.title = "other"  # type: ignore[misc]
+    files = write_scan_outputs(result, tmp_path / "out")
+    assert set(files) >= {"results", "json", "config", "figure_png", "report"}
     doc = json.loads((tmp_path / "out" / "fit.json").read_text(encoding="utf-8"))
-    ratios = doc["quantification"]["ratios"]
-    assert ratios["NAA"] == pytest.approx(1.5, rel=0.02)
-    assert ratios["PCh"] == pytest.approx(0.25, rel=0.05)
-    assert json.loads(json.dumps(outcome.to_dict()))["title"] == "avg"
+    assert doc["quantification"]["ratios"]["NAA"] == pytest.approx(1.5, rel=0.02)
+    assert doc["protocol"] is None and doc["basis"]["origin"] == "given by the caller"
+    assert doc["inputs"]["scan"]["path"] == "avg.nii.gz"
     assert (tmp_path / "out" / "report.html").is_file()

@@ -1,0 +1,582 @@
+"""The analysis of one scan: the only per-scan computation, and the only writer of its folder.
+
+:func:`analyse_scan` runs, for one scan and its optional water reference::
+
+    preprocess -> protocol and basis -> fit -> quantify (water-referenced with tissue
+    fractions) -> QC -> notes
+
+and returns a frozen :class:`ScanResult` in memory (nothing is written). Every command
+(``specproc fit``, ``specproc batch``, ``specproc demo``, ``specproc phantom``) and a notebook
+share it. :func:`write_scan_outputs` writes a result's folder::
+
+    results.tsv   one row per fitted member and combined sum (columns
+                  :data:`specproc.report.tables.RESULT_COLUMNS`)
+    fit.json      the full record (see below)
+    config.toml   the settings used (pass back with --config)
+    fit.png, fit.pdf, preprocess.png   figures
+    report.html   self-contained report
+
+Every file is rendered before the first is written, and each is written atomically
+(:mod:`specproc._atomic`).
+
+Top-level keys of ``fit.json`` (``format = "specproc-scan-result"``, ``format_version = 1``):
+``caution``, ``versions``, ``inputs`` (paths, SHA-256, acquisition summary, tissue fractions),
+``header`` (the files' headers as read), ``settings`` (the full configuration, QC thresholds,
+relaxation overrides), ``preprocessing`` (every step record, transient report, notes),
+``protocol`` (:meth:`specproc.protocol.Protocol.to_dict`: the basis protocol with the source of
+each timing, or null for a basis given by the caller), ``basis`` (origin, members, protons,
+timings, hashes), ``fit`` (:func:`specproc.fit.result_to_dict` without spectra and without the
+full parameter covariance), ``water_amplitude`` (or null), ``quantification``
+(:meth:`specproc.quantify.Quantification.to_dict`: formula and constants), ``qc``
+(:meth:`specproc.qc.QCReport.to_dict`), ``notes`` and ``outputs`` (file names by role). The
+document holds no absolute path, so that one scan analysed by ``specproc fit`` and by
+``specproc batch`` gives the same numbers (only the time stamps of the processing records and
+the wall time differ).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import html
+import os
+import time
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from specproc.errors import InvalidInputError
+
+__all__ = [
+    "KEY_RATIOS",
+    "OUTPUT_FILES",
+    "QC_CRLB_METABOLITES",
+    "ScanResult",
+    "analyse_scan",
+    "resolve_config",
+    "write_scan_outputs",
+]
+
+#: Output file names, by role.
+OUTPUT_FILES: Mapping[str, str] = {
+    "results": "results.tsv",
+    "json": "fit.json",
+    "config": "config.toml",
+    "figure_png": "fit.png",
+    "figure_pdf": "fit.pdf",
+    "preprocess_png": "preprocess.png",
+    "report": "report.html",
+}
+
+#: Ratios summarised by :meth:`ScanResult.summary` (``<name>/tCr``).
+KEY_RATIOS: tuple[str, ...] = ("NAA", "tNAA", "tCho", "mI", "Glx")
+
+#: Metabolites whose CRLB is checked against the QC threshold (common practice: the reported
+#: main metabolites, not every basis member).
+QC_CRLB_METABOLITES: tuple[str, ...] = ("NAA", "tNAA", "tCr", "tCho", "mI", "Glx")
+
+_CONC_SUMMARY = ("tNAA", "tCr", "tCho", "mI", "Glx")
+
+
+# ============================================================================ inputs
+def resolve_config(config: Any = None) -> tuple[dict[str, Any], str]:
+    """The full configuration and a description of where it came from.
+
+    Parameters
+    ----------
+    config : None, path or mapping
+        ``None``: the bundled defaults; a path: a user TOML file merged over the defaults; a
+        mapping: a (partial or full) configuration merged over the defaults.
+    """
+    from specproc.config import default_config, load_config, merge_config
+
+    if config is None:
+        return load_config(None), "bundled defaults"
+    if isinstance(config, str | os.PathLike):
+        return load_config(config), f"defaults merged with {Path(config).name}"
+    if isinstance(config, Mapping):
+        merged = merge_config(dict(config), source="configuration")
+        if merged == default_config():
+            return merged, "bundled defaults"
+        return merged, "defaults merged with a table"
+    raise InvalidInputError(
+        f"a configuration must be a path or a table, got {type(config).__name__}"
+    )
+
+
+def _as_scan(value: Any, what: str) -> Any:
+    from specproc.data import Scan
+    from specproc.io import load
+
+    if value is None or isinstance(value, Scan):
+        return value
+    if isinstance(value, str | os.PathLike):
+        return load(value)
+    raise InvalidInputError(f"the {what} must be a Scan or a path, got {type(value).__name__}")
+
+
+def _input_record(scan: Any) -> dict[str, Any]:
+    from specproc._hash import file_sha256
+
+    source = scan.source
+    digest = None
+    if source is not None and Path(source).is_file():
+        digest = file_sha256(source)
+    return {"path": None if source is None else Path(source).name, "sha256": digest,
+            **{k: v for k, v in scan.summary().items() if k != "source"}}
+
+
+def _default_title(scan: Any) -> str:
+    if not scan.source:
+        return "scan"
+    name = Path(scan.source).name
+    for suffix in (".nii.gz", ".nii", ".npz", ".dcm", ".txt", ".dx", ".jdx"):
+        if name.endswith(suffix):
+            return name[: -len(suffix)]
+    return name
+
+
+def _basis_summary(basis: Any, origin: str, protocol: Any) -> dict[str, Any]:
+    info: dict[str, Any] = {
+        "origin": origin,
+        "names": list(basis.names),
+        "protons": list(basis.protons),
+        "kinds": list(basis.kinds),
+        "sequence": basis.sequence,
+        "timings_s": dict(basis.timings_s),
+        "spectrometer_mhz": basis.spectrometer_mhz,
+        "definitions_hash": basis.definitions_hash,
+        "version": basis.version,
+        "cache_key": basis.metadata.get("cache_key"),
+    }
+    if protocol is not None:
+        info["macromolecules"] = protocol.macromolecules
+        info["macromolecule_rule"] = protocol.macromolecule_source
+        info["timing"] = protocol.timing_text()
+        info["timing_sources"] = dict(protocol.timing_sources)
+    return info
+
+
+# ============================================================================ the result
+@dataclass(frozen=True, eq=False)
+class ScanResult:
+    """Everything the analysis of one scan computed (in memory; see :func:`analyse_scan`).
+
+    Attributes
+    ----------
+    title : str
+        Label of the scan (plain text, not escaped).
+    scan, water : Scan, Scan or None
+        The inputs as given (before preprocessing).
+    preprocessing : PreprocessResult
+        :func:`specproc.preprocess.pipeline.run_pipeline` outcome: the averaged, corrected
+        scan and water FIDs, step records, transient report, notes.
+    protocol : Protocol or None
+        The basis protocol (:mod:`specproc.protocol`); ``None`` when the caller gave the basis.
+    basis : BasisSet
+        The basis fitted with.
+    basis_info : dict
+        Origin, members, protons, timings (and their sources) and hashes of the basis.
+    fit : FitResult
+        :func:`specproc.fit.fit_spectrum` outcome.
+    water_info : dict or None
+        How the water signal S_W was measured (:func:`specproc.quantify.water_amplitude`).
+    quantification : Quantification
+        Ratios, and with water and tissue fractions water-referenced concentrations.
+    qc : QCReport
+        Quality metrics and flags.
+    tissue : dict or None
+        Validated GM/WM/CSF volume fractions.
+    config : dict
+        The full configuration used.
+    config_source : str
+        Where the configuration came from.
+    qc_thresholds : dict
+        The QC thresholds used.
+    relaxation_overrides : mapping, str or None
+        Relaxation overrides used (a path as text).
+    inputs : dict
+        File names, SHA-256 and acquisition summaries of the scan and water reference.
+    versions : dict
+        Software versions.
+    notes : tuple of str
+        Notes of the run (what was not done and why).
+    elapsed_s : float
+        Wall time of the analysis, s.
+    """
+
+    title: str
+    scan: Any
+    water: Any
+    preprocessing: Any
+    protocol: Any
+    basis: Any
+    basis_info: dict[str, Any]
+    fit: Any
+    water_info: dict[str, Any] | None
+    quantification: Any
+    qc: Any
+    tissue: dict[str, float] | None
+    config: dict[str, Any]
+    config_source: str
+    qc_thresholds: dict[str, Any]
+    relaxation_overrides: Any
+    inputs: dict[str, Any]
+    versions: dict[str, str]
+    notes: tuple[str, ...] = field(default_factory=tuple)
+    elapsed_s: float = 0.0
+
+    # ------------------------------------------------------------------ summaries
+    @property
+    def water_referenced(self) -> bool:
+        """Whether concentrations were computed."""
+        return bool(self.quantification.water_referenced)
+
+    @property
+    def ratios(self) -> dict[str, float]:
+        """``<name>/tCr`` molecule ratios of :data:`KEY_RATIOS` (NaN when not fitted)."""
+        q = self.quantification.ratios
+        return {f"{n}/tCr": float(q.get(n, float("nan"))) for n in KEY_RATIOS}
+
+    @property
+    def conc_mm(self) -> dict[str, float] | None:
+        """Water-referenced molar concentrations (mM of GM+WM tissue) of the main sums."""
+        conc = self.quantification.conc_molar_mm
+        if conc is None:
+            return None
+        return {k: float(conc[k]) for k in _CONC_SUMMARY if k in conc}
+
+    @property
+    def qc_passed(self) -> bool:
+        """True when no QC flag was raised."""
+        return not self.qc.flags
+
+    def rows(self) -> list[dict[str, Any]]:
+        """Rows of ``results.tsv`` (:func:`specproc.report.tables.results_rows`)."""
+        from specproc.report.tables import results_rows
+
+        return results_rows(self.fit, self.quantification, self.qc, scan_label=self.title)
+
+    def summary(self) -> dict[str, Any]:
+        """The main numbers as a plain dict (ratios, concentrations, QC, flags)."""
+        return {
+            "title": self.title,
+            "ratios": self.ratios,
+            "conc_mm": self.conc_mm,
+            "snr": float(self.qc.snr),
+            "naa_fwhm_hz": float(self.qc.naa_fwhm_hz),
+            "water_fwhm_hz": float(self.qc.water_fwhm_hz),
+            "n_transients": self.qc.n_transients,
+            "n_rejected": self.qc.n_rejected,
+            "qc_flags": [f.message for f in self.qc.flags],
+            "fit_flags": list(self.fit.flags),
+            "fit_success": bool(self.fit.success),
+            "statement": self.quantification.statement,
+        }
+
+    def to_dict(self) -> dict[str, Any]:
+        """The ``fit.json`` document (without ``outputs``), plain JSON values."""
+        from specproc._json import to_jsonable
+        from specproc.fit import result_to_dict
+
+        pre = self.preprocessing
+        report = pre.transient_report
+        fit = result_to_dict(self.fit, spectra=False)
+        fit.pop("parameter_covariance", None)  # large and derivable; keep the amplitude block
+        relax = self.relaxation_overrides
+        return to_jsonable({
+            "format": "specproc-scan-result",
+            "format_version": 1,
+            "caution": "Research use only; not a medical device.",
+            "versions": self.versions,
+            "inputs": {**self.inputs, "tissue_fractions": self.tissue, "title": self.title},
+            "header": {"scan": dict(self.scan.header),
+                       "water": None if self.water is None else dict(self.water.header)},
+            "settings": {"config_source": self.config_source, "config": self.config,
+                         "qc_thresholds": self.qc_thresholds,
+                         "relaxation_overrides": str(relax) if isinstance(relax, os.PathLike)
+                         else relax},
+            "preprocessing": {
+                "steps": list(pre.scan.provenance),
+                "water_steps": None if pre.water is None else list(pre.water.provenance),
+                "transients": None if report is None else report.to_dict(),
+                "notes": list(pre.notes),
+            },
+            "protocol": None if self.protocol is None else self.protocol.to_dict(),
+            "basis": self.basis_info,
+            "fit": fit,
+            "water_amplitude": self.water_info,
+            "quantification": self.quantification.to_dict(),
+            "qc": self.qc.to_dict(),
+            "notes": list(self.notes),
+        })
+
+    # ------------------------------------------------------------------ display
+    def _headline(self) -> list[tuple[str, str]]:
+        def num(v: Any, fmt: str) -> str:
+            return "n/a" if v is None or not np.isfinite(v) else format(v, fmt)
+
+        conc = self.conc_mm or {}
+        items = [
+            ("NAA/tCr", num(self.ratios["NAA/tCr"], ".3f")),
+            ("tCho/tCr", num(self.ratios["tCho/tCr"], ".3f")),
+            ("tNAA mM", num(conc.get("tNAA"), ".2f") if conc else "not water-referenced"),
+            ("SNR", num(float(self.qc.snr), ".0f")),
+            ("NAA FWHM Hz", num(float(self.qc.naa_fwhm_hz), ".1f")),
+            ("QC", "passed" if self.qc_passed else
+             f"{len(self.qc.flags)} flag(s): " + "; ".join(f.name for f in self.qc.flags)),
+        ]
+        return items
+
+    def __repr__(self) -> str:
+        inner = ", ".join(f"{k}={v}" for k, v in self._headline())
+        return (f"ScanResult({self.title!r}, {len(self.fit.names)} members, {inner}; "
+                f"{self.quantification.statement})")
+
+    def _repr_html_(self) -> str:
+        cells = "".join(f"<tr><th style='text-align:left'>{html.escape(k)}</th>"
+                        f"<td>{html.escape(v)}</td></tr>" for k, v in self._headline())
+        return (f"<div><strong>ScanResult {html.escape(self.title)}</strong> "
+                f"({len(self.fit.names)} basis members; "
+                f"{html.escape(self.quantification.statement)})"
+                f"<table>{cells}</table></div>")
+
+
+# ============================================================================ analysis
+def analyse_scan(
+    scan: Any,
+    water: Any = None,
+    *,
+    tissue: Mapping[str, float] | None = None,
+    basis: Any = None,
+    config: Any = None,
+    protocol: Any = None,
+    title: str | None = None,
+    qc_thresholds: Mapping[str, Any] | None = None,
+    relaxation_overrides: Mapping[str, Any] | str | os.PathLike[str] | None = None,
+) -> ScanResult:
+    """Analyse one scan: preprocessing, basis, fit, quantification, QC and notes.
+
+    Parameters
+    ----------
+    scan : Scan or path
+        Metabolite data (raw transients and coils are preprocessed; an averaged FID goes
+        through the same steps).
+    water : Scan or path, optional
+        Unsuppressed water reference (same points, dwell time and coils).
+    tissue : mapping, optional
+        GM/WM/CSF volume fractions of the voxel (keys ``gm``, ``wm``, ``csf``). With a water
+        reference they give water-referenced concentrations; without them only ratios are
+        computed, and the notes say so.
+    basis : BasisSet or path, optional
+        Basis to fit with; default simulated for ``protocol`` (cached).
+    config : None, path or mapping, optional
+        Configuration (see :func:`resolve_config`).
+    protocol : Protocol, optional
+        Basis protocol (default :func:`specproc.protocol.resolve_protocol` of the scan and the
+        configuration). With ``basis`` too, the caller says that the basis was simulated for
+        this protocol (a cohort run shares one basis file per protocol); it is then recorded.
+    title : str, optional
+        Label of the scan (default from the file name).
+    qc_thresholds : mapping, optional
+        QC flag thresholds (:class:`specproc.qc.QCThresholds` fields).
+    relaxation_overrides : mapping or path, optional
+        Relaxation times merged over the bundled table.
+
+    Returns
+    -------
+    ScanResult
+
+    Raises
+    ------
+    InvalidInputError
+        For unreadable inputs, bad settings, a mismatched water reference or tissue fractions.
+    """
+    from specproc._versions import software_versions
+    from specproc.basis import BasisSet
+    from specproc.fit import fit_spectrum
+    from specproc.preprocess.pipeline import run_pipeline
+    from specproc.protocol import resolve_protocol
+    from specproc.qc import QCThresholds, qc_from_scan
+    from specproc.quantify import quantify, validate_tissue_fractions, water_amplitude
+
+    start = time.perf_counter()
+    scan = _as_scan(scan, "scan")
+    water = _as_scan(water, "water reference")
+    cfg, cfg_source = resolve_config(config)
+    thresholds = QCThresholds.from_mapping(qc_thresholds)
+    tissue_fractions = None if tissue is None else validate_tissue_fractions(tissue)
+    label = title if title is not None else _default_title(scan)
+    notes: list[str] = []
+
+    # ---- basis protocol (from the scan as acquired, so every command resolves the same one)
+    simulated = "simulated for the scan protocol (specproc.protocol, cached)"
+    used_protocol = protocol
+    if isinstance(basis, BasisSet):
+        used_basis = basis
+        origin = "given by the caller" if protocol is None else simulated
+    elif isinstance(basis, str | os.PathLike):
+        used_basis = BasisSet.load(basis)
+        origin = f"file {Path(basis).name}" if protocol is None else simulated
+    elif basis is not None:
+        raise InvalidInputError(f"basis must be a BasisSet or a path, got {type(basis).__name__}")
+    else:
+        if used_protocol is None:
+            used_protocol = resolve_protocol(scan, config=cfg)
+        used_basis = None
+        origin = simulated
+
+    pre = run_pipeline(scan, water=water, config=cfg)
+    notes.extend(pre.notes)
+    if used_basis is None:
+        used_basis = used_protocol.simulate()
+    fit = fit_spectrum(pre.scan, used_basis, config=cfg)
+
+    # ---- quantification
+    amplitudes = dict(zip(fit.names, (float(a) for a in fit.amplitudes), strict=True))
+    protons = {n: float(p) for n, p in zip(used_basis.names, used_basis.protons, strict=True)}
+    water_info: dict[str, Any] | None = None
+    quant_kwargs: dict[str, Any] = {}
+    if pre.water is not None and tissue_fractions is not None:
+        if pre.scan.te_s is None or pre.scan.tr_s is None:
+            raise InvalidInputError(
+                "water-referenced concentrations need the scan's TE and TR", scan.source)
+        s_w, s_w_sd, water_info = water_amplitude(pre.water)
+        quant_kwargs = dict(
+            water_amplitude=s_w, water_amplitude_sd=s_w_sd, water_proton_normalised=False,
+            volume_fractions=tissue_fractions, te_s=pre.scan.te_s, tr_s=pre.scan.tr_s,
+            water_te_s=pre.water.te_s, water_tr_s=pre.water.tr_s, field_t=pre.scan.field_t,
+            relaxation_overrides=relaxation_overrides,
+        )
+    elif pre.water is not None:
+        notes.append("a water reference was given but no tissue fractions: ratios only")
+    elif tissue_fractions is not None:
+        notes.append("tissue fractions were given but no water reference: ratios only")
+    quant = quantify(
+        amplitudes, names=list(fit.names), covariance=fit.covariance, protons=protons,
+        proton_normalised=True, **quant_kwargs,
+    )
+    if pre.water is not None and not quant.water_referenced:
+        quant = dataclasses.replace(
+            quant, statement="water reference present but no tissue fractions given: "
+                             "ratios to tCr only"
+        )
+
+    # ---- QC
+    report = pre.transient_report
+    transients: dict[str, Any] = {}
+    if report is not None:
+        transients["kept"] = report.kept
+        if np.all(np.isfinite(report.shifts_hz)):
+            transients["shifts_hz"] = report.shifts_hz
+    crlb = {}
+    for name in QC_CRLB_METABOLITES:
+        if name in fit.names:
+            crlb[name] = float(fit.crlb_percent[fit.names.index(name)])
+        elif name in fit.combined:
+            crlb[name] = float(fit.combined[name]["crlb_percent"])
+    qc = qc_from_scan(
+        pre.scan, water=pre.water, residual=fit.residual, residual_ppm=fit.ppm,
+        fit_range_ppm=fit.fit_range_ppm, crlb_percent=crlb, thresholds=thresholds,
+        **transients,
+    )
+
+    inputs = {"scan": _input_record(scan),
+              "water": None if water is None else _input_record(water)}
+    return ScanResult(
+        title=label, scan=scan, water=water, preprocessing=pre, protocol=used_protocol,
+        basis=used_basis, basis_info=_basis_summary(used_basis, origin, used_protocol),
+        fit=fit, water_info=water_info, quantification=quant, qc=qc,
+        tissue=None if tissue_fractions is None else dict(tissue_fractions),
+        config=cfg, config_source=cfg_source, qc_thresholds=thresholds.to_dict(),
+        relaxation_overrides=relaxation_overrides, inputs=inputs,
+        versions=software_versions(), notes=tuple(notes),
+        elapsed_s=time.perf_counter() - start,
+    )
+
+
+# ============================================================================ outputs
+def write_scan_outputs(result: ScanResult, outdir: str | os.PathLike[str]) -> dict[str, Path]:
+    """Write the folder of one analysed scan (the only writer of a scan folder).
+
+    Parameters
+    ----------
+    result : ScanResult
+        From :func:`analyse_scan`.
+    outdir : path
+        Folder (created; files replaced atomically).
+
+    Returns
+    -------
+    dict of str to Path
+        The files written, by role (:data:`OUTPUT_FILES`; ``preprocess_png`` may be missing
+        when that figure could not be drawn, a note then says why).
+
+    Raises
+    ------
+    InvalidInputError
+        When the folder cannot be created or is a file.
+    """
+    from specproc._atomic import write_bytes, write_text
+    from specproc._json import dumps
+    from specproc._tsv import tsv_text
+    from specproc.report.figures import figure_pdf_bytes, figure_png_bytes
+    from specproc.report.fit_figure import plot_fit
+    from specproc.report.html import render_report
+    from specproc.report.tables import RESULT_COLUMNS, config_to_toml
+
+    out = Path(outdir)
+    if out.exists() and not out.is_dir():
+        raise InvalidInputError("the output must be a folder", out)
+    notes = list(result.notes)
+    rows = result.rows()
+    texts: dict[str, str] = {}
+    blobs: dict[str, bytes] = {}
+    texts["results"] = tsv_text(RESULT_COLUMNS, rows)
+    texts["config"] = config_to_toml(result.config, header=(
+        f"specproc settings used for {result.title} ({result.config_source}); "
+        "pass back with --config"))
+    safe = result.title.replace("$", r"\$")  # matplotlib would read $...$ as mathtext
+    fig = plot_fit(result.fit, title=f"{safe}: linear-combination fit")
+    blobs["figure_png"] = figure_png_bytes(fig)
+    fig.set_layout_engine("none")  # keep the layout of the PNG; the PDF need not redo it
+    blobs["figure_pdf"] = figure_pdf_bytes(fig)
+    figures = [("Linear-combination fit: data, fit, baseline, residual and members",
+                blobs["figure_png"])]
+    try:
+        from specproc.report.preprocess_figure import render_preprocess_figure
+
+        blobs["preprocess_png"] = render_preprocess_figure(
+            result.preprocessing, title=f"{safe}: preprocessing")
+        figures.append(("Preprocessing: transients before and after alignment, drift, average",
+                        blobs["preprocess_png"]))
+    except Exception as exc:  # an optional figure must not stop the results
+        notes.append(f"preprocessing figure not drawn: {type(exc).__name__}: {exc}")
+    roles = [r for r in OUTPUT_FILES if r in texts or r in blobs or r in ("json", "report")]
+    document = result.to_dict()
+    document["notes"] = notes
+    document["outputs"] = {role: OUTPUT_FILES[role] for role in roles}
+    texts["json"] = dumps(document, indent=1, allow_nan=False) + "\n"
+    texts["report"] = render_report(
+        title=result.title, scan=result.scan, water=result.water, pre=result.preprocessing,
+        fit=result.fit, quant=result.quantification, qc=result.qc, rows=rows,
+        figures=figures, versions=result.versions, basis_info=result.basis_info,
+        water_info=result.water_info, tissue=result.tissue, notes=notes,
+        links={"fit.json": OUTPUT_FILES["json"], "config.toml": OUTPUT_FILES["config"],
+               "results.tsv": OUTPUT_FILES["results"], "fit.pdf": OUTPUT_FILES["figure_pdf"]},
+        cfg_source=result.config_source,
+    )
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise InvalidInputError(
+            f"cannot create the output folder: {exc.strerror or exc}", out) from None
+    files = {role: out / OUTPUT_FILES[role] for role in roles}
+    for role in roles:
+        if role in texts:
+            write_text(files[role], texts[role])
+        else:
+            write_bytes(files[role], blobs[role])
+    return files

@@ -1,0 +1,343 @@
+"""The basis protocol of a scan: the one definition used by fit, batch, demo and phantom.
+
+A :class:`Protocol` holds everything a simulated basis depends on: sequence, field strength,
+echo time, the sequence's sub-timings, dwell time, number of points, receiver centre, the
+members and whether the macromolecule components are added. :func:`resolve_protocol` builds
+it from a :class:`~specproc.data.Scan` and the user's choices.
+
+Sub-timings
+-----------
+Only the timing the sequence needs is resolved:
+
+* PRESS: the first echo time ``te1_s`` (the second is ``te - te1``);
+* STEAM: the mixing time ``tm_s``;
+* semi-LASER: the five inter-pulse delays ``delays_s`` (excitation to echo).
+
+Each is taken from the first of these that gives it, and the protocol records where it came
+from (:attr:`Protocol.timing_sources`):
+
+1. ``"option"``: the command line (``specproc fit --te1-ms/--tm-ms/--delays-ms``);
+2. ``"manifest"``: the cohort manifest (columns ``te1_ms``, ``tm_ms``, ``delays_ms``);
+3. ``"config"``: the ``[protocol]`` table of the configuration;
+4. ``"header"``: the scan's header (NIfTI-MRS ``MixingTime``, or the user key
+   ``specproc_timings`` read into :attr:`specproc.data.Scan.timings`);
+5. an assumption: ``"assumed: TE1 = TE/2"`` (PRESS, symmetric), ``"assumed: d = (TE/8, TE/4,
+   TE/4, TE/4, TE/8)"`` (semi-LASER). STEAM has no default: without TM it is an error.
+
+The NIfTI-MRS user key is ``"specproc_timings": {"Value": {"te1_s": ..., "tm_s": ...,
+"delays_s": [...]}, "Description": "..."}`` (only the relevant members present).
+
+Macromolecules
+--------------
+Unless chosen explicitly, the macromolecule components are added when TE is below
+:data:`SHORT_TE_S` (common practice: macromolecule signals are visible at short TE and decay
+by TE ≈ 60 ms or so).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+from specproc.errors import InvalidInputError
+
+__all__ = [
+    "MACROMOLECULE_RULE",
+    "SHORT_TE_S",
+    "TIMINGS_HEADER_KEY",
+    "TIMING_KEYS",
+    "Protocol",
+    "parse_timings",
+    "resolve_protocol",
+]
+
+#: Echo times below this include the macromolecule components in a simulated basis, s
+#: (common practice: macromolecules matter at short TE).
+SHORT_TE_S = 0.06
+
+#: The macromolecule rule in words (for reports and help texts).
+MACROMOLECULE_RULE = f"included when TE < {SHORT_TE_S * 1e3:g} ms (common practice)"
+
+#: NIfTI-MRS header user key holding the sub-timings.
+TIMINGS_HEADER_KEY = "specproc_timings"
+
+#: The sub-timing each sequence needs.
+TIMING_KEYS: Mapping[str, str] = {"press": "te1_s", "steam": "tm_s", "semi-laser": "delays_s"}
+
+_ASSUMED = {
+    "te1_s": "assumed: TE1 = TE/2",
+    "delays_s": "assumed: d = (TE/8, TE/4, TE/4, TE/4, TE/8)",
+}
+_SOURCES = ("option", "manifest", "config", "header")
+
+
+def _time(value: Any, what: str, where: Any) -> float:
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        raise InvalidInputError(f"{what} is not a number: {value!r}", where) from None
+    if not math.isfinite(number) or number < 0:
+        raise InvalidInputError(f"{what} must be a non-negative time, got {value!r}", where)
+    return number
+
+
+def parse_timings(raw: Mapping[str, Any] | None, *, where: Any = None,
+                  what: str = "timings") -> dict[str, Any]:
+    """Checked sub-timings (``te1_s``, ``tm_s`` s; ``delays_s`` tuple of s) from a mapping.
+
+    ``None`` values, a zero ``te1_s``/``tm_s`` and an empty ``delays_s`` mean "not given" (the
+    convention of the configuration file, where TOML has no null) and are left out.
+
+    Raises
+    ------
+    InvalidInputError
+        For an unknown key, a value that is not a non-negative time, or delays that are not a
+        list of numbers.
+    """
+    out: dict[str, Any] = {}
+    if not raw:
+        return out
+    if not isinstance(raw, Mapping):
+        raise InvalidInputError(f"{what} must be a table, got {raw!r}", where)
+    unknown = sorted(set(raw) - {"te1_s", "tm_s", "delays_s"})
+    if unknown:
+        raise InvalidInputError(
+            f"unknown {what} {unknown} (known: te1_s, tm_s, delays_s)", where)
+    for key in ("te1_s", "tm_s"):
+        value = raw.get(key)
+        if value is not None:
+            number = _time(value, f"{what} {key}", where)
+            if number > 0:
+                out[key] = number
+    delays = raw.get("delays_s")
+    if delays is not None:
+        if isinstance(delays, str | bytes) or not isinstance(delays, Sequence):
+            raise InvalidInputError(f"{what} delays_s must be a list of times, got {delays!r}",
+                                    where)
+        if len(delays):
+            out["delays_s"] = tuple(_time(d, f"{what} delays_s", where) for d in delays)
+    return out
+
+
+@dataclass(frozen=True)
+class Protocol:
+    """The simulation inputs of a scan's basis (what :func:`specproc.basis.simulate_basis` takes).
+
+    Attributes
+    ----------
+    sequence : str
+        Normalised sequence name.
+    field_t : float
+        Field strength, T (rounded to 0.1 mT so that scans of one scanner share a basis).
+    te_s : float or None
+        Echo time, s (``None`` for pulse-acquire).
+    dwell_s : float
+        Sampling interval, s.
+    n_points : int
+        Number of time-domain points.
+    centre_ppm : float
+        Shift at the receiver centre, ppm.
+    metabolites : tuple of str or None
+        Basis members (``None``: every metabolite definition).
+    macromolecules : bool
+        Whether the macromolecule components are added.
+    te1_s : float or None
+        PRESS first echo time, s (TE2 = TE - TE1).
+    tm_s : float or None
+        STEAM mixing time, s.
+    delays_s : tuple of float or None
+        semi-LASER inter-pulse delays d1..d5, s.
+    timing_sources : mapping of str to str
+        Where each resolved sub-timing came from: ``"option"``, ``"manifest"``, ``"config"``,
+        ``"header"`` or ``"assumed: ..."`` (keys ``te1_s``, ``tm_s``, ``delays_s``).
+    macromolecule_source : str
+        ``"chosen"`` or the rule (:data:`MACROMOLECULE_RULE`).
+    """
+
+    sequence: str
+    field_t: float
+    te_s: float | None
+    dwell_s: float
+    n_points: int
+    centre_ppm: float
+    metabolites: tuple[str, ...] | None = None
+    macromolecules: bool = False
+    te1_s: float | None = None
+    tm_s: float | None = None
+    delays_s: tuple[float, ...] | None = None
+    timing_sources: Mapping[str, str] = field(default_factory=dict)
+    macromolecule_source: str = MACROMOLECULE_RULE
+
+    def _inputs(self) -> dict[str, Any]:
+        return {
+            "sequence": self.sequence, "field_t": self.field_t, "te_s": self.te_s,
+            "te1_s": self.te1_s, "tm_s": self.tm_s,
+            "delays_s": None if self.delays_s is None else list(self.delays_s),
+            "dwell_s": self.dwell_s, "n_points": self.n_points, "centre_ppm": self.centre_ppm,
+            "metabolites": None if self.metabolites is None else list(self.metabolites),
+            "macromolecules": self.macromolecules,
+        }
+
+    def simulation_args(self) -> dict[str, Any]:
+        """Keyword arguments of :func:`specproc.basis.simulate_basis` (``None`` left out)."""
+        return {k: v for k, v in self._inputs().items() if v is not None}
+
+    def to_dict(self) -> dict[str, Any]:
+        """Plain JSON-able dict (for fit.json): the inputs and where the timings came from."""
+        return {**self._inputs(), "timing_sources": dict(self.timing_sources),
+                "macromolecule_source": self.macromolecule_source}
+
+    def key(self) -> str:
+        """Short content hash of the protocol, the specproc and engine versions and the
+        definition files: equal keys simulate equal bases."""
+        from specproc import __version__
+        from specproc._hash import json_sha256
+        from specproc.basis import ENGINE_VERSION
+        from specproc.spins.systems import definitions_hash
+
+        return json_sha256({"protocol": self._inputs(), "version": __version__,
+                            "engine": ENGINE_VERSION, "definitions": definitions_hash()})[:20]
+
+    def simulate(self, *, cache: bool = True, progress: Any = False) -> Any:
+        """The basis of this protocol (:func:`specproc.basis.simulate_basis`, cached)."""
+        from specproc.basis import simulate_basis
+
+        return simulate_basis(**self.simulation_args(), cache=cache, progress=progress)
+
+    def timing_text(self) -> str:
+        """The sub-timing used and its source, in words (empty when the sequence has none)."""
+        key = TIMING_KEYS.get(self.sequence)
+        if key is None:
+            return ""
+        value = getattr(self, key)
+        source = self.timing_sources.get(key, "")
+        if key == "delays_s":
+            shown = "(" + ", ".join(f"{d * 1e3:g}" for d in value) + ") ms"
+            return f"semi-LASER delays {shown} ({source})"
+        if key == "te1_s":
+            te2 = (self.te_s or 0.0) - value
+            return f"TE1 {value * 1e3:g} ms, TE2 {te2 * 1e3:g} ms ({source})"
+        return f"TM {value * 1e3:g} ms ({source})"
+
+
+def _header_timings(scan: Any) -> dict[str, Any]:
+    out = dict(getattr(scan, "timings", None) or {})
+    if getattr(scan, "tm_s", None) is not None:
+        out.setdefault("tm_s", scan.tm_s)
+    return parse_timings(out, where=getattr(scan, "source", None), what="header timings")
+
+
+def resolve_protocol(
+    scan: Any,
+    *,
+    sequence: str | None = None,
+    field_t: float | None = None,
+    te_s: float | None = None,
+    option: Mapping[str, Any] | None = None,
+    manifest: Mapping[str, Any] | None = None,
+    config: Mapping[str, Any] | None = None,
+    metabolites: Sequence[str] | None = None,
+    macromolecules: bool | None = None,
+) -> Protocol:
+    """The basis protocol of a scan.
+
+    Parameters
+    ----------
+    scan : Scan
+        Gives the field, sequence, TE, dwell time, number of points, receiver centre and, in
+        its header, the sub-timings.
+    sequence, field_t, te_s : optional
+        Overrides of the scan's sequence, field (T) and echo time (s).
+    option, manifest : mapping, optional
+        Sub-timings (``te1_s``, ``tm_s``, ``delays_s``) from the command line and from the
+        manifest.
+    config : mapping, optional
+        The full configuration (its ``[protocol]`` table is read) or ``None``.
+    metabolites : sequence of str, optional
+        Members (default: ``[fit] members`` of ``config`` when not empty, else all).
+    macromolecules : bool, optional
+        Add the macromolecule components (default: the rule, TE < :data:`SHORT_TE_S`).
+
+    Raises
+    ------
+    InvalidInputError
+        When the sequence, TE (TM for STEAM) is unknown, or for a bad timing.
+    """
+    from specproc.constants import field_from_larmor
+    from specproc.spins.sequences import normalise_sequence_name
+
+    where = getattr(scan, "source", None)
+    name = sequence or scan.sequence
+    if not name:
+        raise InvalidInputError(
+            "the scan does not say which sequence acquired it; name it with --sequence or a "
+            "manifest column (pulse-acquire, spin-echo, press, steam, semi-laser)", where)
+    try:
+        seq = normalise_sequence_name(name)
+    except InvalidInputError as exc:
+        raise InvalidInputError(
+            f"{exc.message}; name the sequence with --sequence to override", where) from None
+    if field_t is None:
+        field_t = field_from_larmor(scan.spectrometer_mhz, scan.nucleus)
+    elif not field_t > 0:
+        raise InvalidInputError(f"the field strength must be positive, got {field_t:g} T")
+    te = scan.te_s if te_s is None else float(te_s)
+    cfg_timings = (config or {}).get("protocol") if config is not None else None
+    layers = {
+        "option": parse_timings(option, what="option"),
+        "manifest": parse_timings(manifest, where=where, what="manifest timings"),
+        "config": parse_timings(cfg_timings, what="configuration [protocol]"),
+        "header": _header_timings(scan),
+    }
+    timings: dict[str, Any] = {}
+    sources: dict[str, str] = {}
+    key = TIMING_KEYS.get(seq)
+    if key is not None:
+        for source in _SOURCES:
+            if key in layers[source]:
+                timings[key] = layers[source][key]
+                sources[key] = source
+                break
+    if seq == "semi-laser" and "delays_s" not in timings and te is not None:
+        timings["delays_s"] = (te / 8, te / 4, te / 4, te / 4, te / 8)
+        sources["delays_s"] = _ASSUMED["delays_s"]
+    if seq == "semi-laser" and te is None and "delays_s" in timings:
+        te = float(sum(timings["delays_s"]))
+    if seq != "pulse-acquire" and te is None:
+        raise InvalidInputError(
+            "the scan does not give its echo time (give --te, or a te_ms manifest column)", where)
+    if seq == "pulse-acquire":
+        te = None
+    if seq == "press" and "te1_s" not in timings:
+        timings["te1_s"] = te / 2
+        sources["te1_s"] = _ASSUMED["te1_s"]
+    if seq == "steam" and "tm_s" not in timings:
+        raise InvalidInputError(
+            "the scan does not give its STEAM mixing time (give --tm-ms, a tm_ms manifest "
+            "column or [protocol] tm_s)", where)
+    if metabolites is None and config is not None:
+        members = list((config.get("fit") or {}).get("members") or [])
+        metabolites = members or None
+    if macromolecules is None:
+        macromolecules = te is not None and te < SHORT_TE_S
+        mm_source = MACROMOLECULE_RULE
+    else:
+        mm_source = "chosen"
+    protocol = Protocol(
+        sequence=seq, field_t=round(float(field_t), 4), te_s=te, dwell_s=float(scan.dwell_s),
+        n_points=int(scan.n_points), centre_ppm=float(scan.reference_ppm),
+        metabolites=None if metabolites is None else tuple(str(m) for m in metabolites),
+        macromolecules=bool(macromolecules), te1_s=timings.get("te1_s"),
+        tm_s=timings.get("tm_s"), delays_s=timings.get("delays_s"), timing_sources=sources,
+        macromolecule_source=mm_source,
+    )
+    from specproc.spins.sequences import build_sequence
+
+    try:  # the timings must form the sequence (TE1 < TE, delays summing to TE ...)
+        build_sequence(seq, te_s=protocol.te_s, te1_s=protocol.te1_s, tm_s=protocol.tm_s,
+                       delays_s=protocol.delays_s)
+    except InvalidInputError as exc:
+        raise InvalidInputError(exc.message, where) from None
+    return protocol
