@@ -336,8 +336,8 @@ def load_nominal(path: str | os.PathLike[str]) -> NominalSpec:
         phantoms = tuple(_contents(p, f"phantom {i + 1}", where)
                          for i, p in enumerate(raw["phantom"]))
     else:
-        top = {k: raw[k] for k in ("name", "files", "concentrations_mm", "temperature_c")
-               if k in raw}
+        top: dict[str, Any] = {k: raw[k] for k in ("name", "files", "concentrations_mm",
+                                                   "temperature_c") if k in raw}
         phantoms = (_contents(top, "phantom", where),)
     reference = str(raw.get("reference", "water"))
     spec_compounds = {n.lower() for p in phantoms for n in p.concentrations_mm}
