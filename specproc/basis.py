@@ -524,7 +524,8 @@ def simulate_basis(
         Number of time-domain points.
     metabolites : iterable of str or comma-separated str, optional
         Names from ``specproc/data/basis/`` (case-insensitive); default all definitions of kind
-        ``"metabolite"`` (water is left out unless named).
+        ``"metabolite"`` with ``in_default_basis`` (water and free choline are left out unless
+        named).
     macromolecules : bool, optional
         Also add the components of ``specproc/data/basis/macromolecules.toml`` as Gaussian lines.
     centre_ppm : float, optional
@@ -561,7 +562,7 @@ def simulate_basis(
     if isinstance(metabolites, str):
         metabolites = [m for m in metabolites.split(",") if m.strip()]
     if metabolites is None:
-        mets = [m for m in load_metabolites() if m.kind == "metabolite"]
+        mets = [m for m in load_metabolites() if m.kind == "metabolite" and m.in_default_basis]
     else:
         names = [str(m).strip() for m in metabolites]
         if not names:

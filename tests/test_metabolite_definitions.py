@@ -1,9 +1,11 @@
 """Checks of the metabolite definition files in ``specproc/data/basis/`` and of their reader.
 
 Outside sources (see tests/REFERENCES.md, section "Metabolite definitions"):
-- Govindaraju V, Young K, Maudsley AA. NMR Biomed 2000;13:129-153, table 2: the NAA and NAAG
-  values below are **checked** against a reproduction of the table; the other values are
-  **from memory**.
+- Govindaraju V, Young K, Maudsley AA. NMR Biomed 2000;13:129-153, table 2, and its 2015
+  revision (doi:10.1002/nbm.3336): the numbers in ``TABLE_VALUES`` were read from reproductions
+  of the table (**checked**); every value a file marks "checked" must be pinned there.
+- BMRB/GISSMO spin-system fits (Dashti H, et al. Anal Chem 2017;89:12201; 25 C, pH 7.4):
+  ``GISSMO_VALUES``, compared with tolerances for the different conditions (0.02 ppm, 0.5 Hz).
 - Molecular formulas and structures (textbook organic chemistry / IUPAC structures) for the
   proton counts: non-exchangeable (carbon-bound) protons only.
 - Textbook NMR: geminal sp3 couplings are negative (about -10 to -18 Hz), vicinal couplings
@@ -21,6 +23,7 @@ import pytest
 
 from specproc._paths import basis_dir
 from specproc.errors import InvalidInputError
+from specproc.provenance import STATUSES
 from specproc.spins.systems import (
     Metabolite,
     definitions_hash,
@@ -28,10 +31,11 @@ from specproc.spins.systems import (
     load_macromolecules,
     load_metabolite,
     load_metabolites,
+    provenance_items,
 )
 
 REQUIRED = (
-    "Ala", "Asc", "Asp", "Cr", "PCr", "GABA", "Glc", "Gln", "Glu", "Gly",
+    "Ala", "Asc", "Asp", "Cho", "Cr", "PCr", "GABA", "Glc", "Gln", "Glu", "Gly",
     "GPC", "PCh", "GSH", "Lac", "mI", "NAA", "NAAG", "PE", "sI", "Tau",
 )  # fmt: skip
 
@@ -42,6 +46,7 @@ EXPECTED_PROTONS = {
     "Ala": ("C3H7NO2, CH3-CH(NH2)-COOH", 4),  # CH3 + CH
     "Asc": ("C6H8O6, ascorbic acid", 4),  # H4, H5, H6 x2; four OH exchange
     "Asp": ("C4H7NO4, HOOC-CH(NH2)-CH2-COOH", 3),  # CH + CH2
+    "Cho": ("C5H14NO+, choline cation", 13),  # N(CH3)3 9 + 2 CH2 4; OH exchanges
     "Cr": ("C4H9N3O2, creatine", 5),  # N-CH3 + CH2; four NH exchange
     "PCr": ("C4H10N3O5P, phosphocreatine", 5),  # N-CH3 + CH2
     "GABA": ("C4H9NO2, H2N-(CH2)3-COOH", 6),  # three CH2
@@ -65,7 +70,7 @@ EXPECTED_PROTONS = {
 # molecular structures: protons more than three bonds apart or across a heteroatom/carbonyl
 # have no resolved coupling (textbook NMR).
 EXPECTED_SYSTEMS = {
-    "Ala": [4], "Asc": [4], "Asp": [3], "Cr": [2, 3], "PCr": [2, 3], "GABA": [6],
+    "Ala": [4], "Asc": [4], "Asp": [3], "Cho": [4, 9], "Cr": [2, 3], "PCr": [2, 3], "GABA": [6],
     "Glc": [7, 7], "Gln": [5], "Glu": [5], "Gly": [2], "GPC": [4, 5, 9], "PCh": [4, 9],
     "GSH": [2, 3, 5], "Lac": [4], "mI": [6], "NAA": [3, 3], "NAAG": [3, 3, 5], "PE": [4],
     "sI": [6], "Tau": [4], "H2O": [2],
@@ -80,9 +85,7 @@ def metabolites() -> dict[str, Metabolite]:
 
 
 def _effective_sources(met: Metabolite) -> list[str]:
-    return [g.source or met.source for g in met.groups] + [
-        c.source or met.source for c in met.couplings
-    ]
+    return [g.source for g in met.groups] + [c.source for c in met.couplings]
 
 
 # ------------------------------------------------------------------- files and names
@@ -167,46 +170,107 @@ def test_coupling_signs_and_sizes(metabolites: dict[str, Metabolite]) -> None:
 
 
 # ------------------------------------------------------------------- published values
-def test_naa_checked_values(metabolites: dict[str, Metabolite]) -> None:
-    # Govindaraju 2000, table 2 (checked excerpt in REFERENCES.md).
-    naa = metabolites["NAA"]
-    assert naa.group("acetyl_2CH3").shift_ppm == 2.0080
-    assert naa.group("acetyl_2CH3").protons == 3
-    assert naa.group("2CH").shift_ppm == 4.3817
-    assert naa.group("3CH2a").shift_ppm == 2.6727
-    assert naa.group("3CH2b").shift_ppm == 2.4863
-    j = {frozenset((c.a, c.b)): c.j_hz for c in naa.couplings}
-    assert j == {
-        frozenset(("2CH", "3CH2a")): 3.861,
-        frozenset(("2CH", "3CH2b")): 9.821,
-        frozenset(("3CH2a", "3CH2b")): -15.592,
-    }
-    assert "checked" in naa.source
+# Numbers read from reproductions of the published table (Govindaraju et al. 2000 and its 2015
+# revision; tests/REFERENCES.md). Key: (metabolite, group label) for a shift in ppm,
+# (metabolite, label, label) for a coupling in Hz. The files must hold exactly these numbers.
+TABLE_VALUES: dict[tuple[str, ...], float] = {
+    # NAA, 2000 table
+    ("NAA", "acetyl_2CH3"): 2.0080, ("NAA", "2CH"): 4.3817, ("NAA", "3CH2a"): 2.6727,
+    ("NAA", "3CH2b"): 2.4863, ("NAA", "2CH", "3CH2a"): 3.861, ("NAA", "2CH", "3CH2b"): 9.821,
+    ("NAA", "3CH2a", "3CH2b"): -15.592,
+    # NAAG, 2000 table (the glutamate moiety has shifts only)
+    ("NAAG", "acetyl_2CH3"): 2.042, ("NAAG", "asp2CH"): 4.607, ("NAAG", "asp3CH2a"): 2.721,
+    ("NAAG", "asp3CH2b"): 2.519, ("NAAG", "glu2CH"): 4.128, ("NAAG", "glu3CH2a"): 1.881,
+    ("NAAG", "glu3CH2b"): 2.049, ("NAAG", "glu4CH2a"): 2.190, ("NAAG", "glu4CH2b"): 2.180,
+    ("NAAG", "asp2CH", "asp3CH2a"): 4.412, ("NAAG", "asp2CH", "asp3CH2b"): 9.515,
+    ("NAAG", "asp3CH2a", "asp3CH2b"): -15.910,
+    # glutamate, revised table: 3-4 6.413, 3-4' 8.406, 3'-4 8.478, 3'-4' 6.875 Hz
+    ("Glu", "2CH"): 3.7444, ("Glu", "3CH2a"): 2.0424, ("Glu", "4CH2a"): 2.3354,
+    ("Glu", "4CH2b"): 2.3507, ("Glu", "3CH2a", "4CH2a"): 6.413, ("Glu", "3CH2a", "4CH2b"): 8.406,
+    ("Glu", "3CH2b", "4CH2a"): 8.478, ("Glu", "3CH2b", "4CH2b"): 6.875,
+    # glutamine, revised table: 2CH, and J 3'-4' (3CH2a-4CH2b here)
+    ("Gln", "2CH"): 3.7625, ("Gln", "3CH2a", "4CH2b"): 6.437,
+    # glucose, revised table: alpha 5-6, beta 3-4, 4-5, 5-6
+    ("Glc", "a5CH", "a6CH2a"): 1.5, ("Glc", "b3CH", "b4CH"): 9.4, ("Glc", "b4CH", "b5CH"): 8.9,
+    ("Glc", "b5CH", "b6CH2a"): 1.6,
+    # free choline, revised table
+    ("Cho", "NCH33"): 3.189, ("Cho", "2CH2a"): 3.506, ("Cho", "2CH2b"): 3.506,
+    ("Cho", "1CH2a"): 4.05, ("Cho", "1CH2b"): 4.05, ("Cho", "1CH2a", "2CH2a"): 3.14,
+    ("Cho", "1CH2a", "2CH2b"): 6.979, ("Cho", "1CH2b", "2CH2a"): 7.011,
+    ("Cho", "1CH2b", "2CH2b"): 3.168,
+}  # fmt: skip
+
+# BMRB/GISSMO (Dashti et al. 2017; 25 C, pH 7.4): shifts may differ by up to ~0.02 ppm from the
+# 37 C table. GABA: shifts, and the means of the four 2-3 and the four 3-4 couplings.
+GISSMO_GABA_SHIFTS = {"2CH2": 2.998, "3CH2": 1.893, "4CH2": 2.286}
+GISSMO_GABA_MEAN_J = {("2CH2", "3CH2"): 7.63, ("3CH2", "4CH2"): 7.37}
+GISSMO_SHIFT_TOL_PPM = 0.02
+GISSMO_J_TOL_HZ = 0.5
 
 
-def test_naag_checked_values(metabolites: dict[str, Metabolite]) -> None:
-    # Govindaraju 2000, table 2 (checked excerpt in REFERENCES.md).
-    naag = metabolites["NAAG"]
-    shifts = {g.label: g.shift_ppm for g in naag.groups}
-    assert shifts == {
-        "acetyl_2CH3": 2.042,
-        "asp2CH": 4.607,
-        "asp3CH2a": 2.721,
-        "asp3CH2b": 2.519,
-        "glu2CH": 4.128,
-        "glu3CH2a": 1.881,
-        "glu3CH2b": 2.049,
-        "glu4CH2a": 2.190,
-        "glu4CH2b": 2.180,
-    }
-    j = {frozenset((c.a, c.b)): c.j_hz for c in naag.couplings}
-    assert j[frozenset(("asp2CH", "asp3CH2a"))] == 4.412
-    assert j[frozenset(("asp2CH", "asp3CH2b"))] == 9.515
-    assert j[frozenset(("asp3CH2a", "asp3CH2b"))] == -15.910
-    # the glutamate-moiety couplings are not in the checked excerpt: they must say so
+def _value(met: Metabolite, key: tuple[str, ...]) -> float:
+    if len(key) == 1:
+        return met.group(key[0]).shift_ppm
+    (c,) = [c for c in met.couplings if {c.a, c.b} == set(key)]
+    return c.j_hz
+
+
+def _records(met: Metabolite) -> list[tuple[tuple[str, ...], object]]:
+    return [((g.label,), g.provenance) for g in met.groups] + [
+        ((c.a, c.b), c.provenance) for c in met.couplings
+    ]
+
+
+def test_table_values_pinned(metabolites: dict[str, Metabolite]) -> None:
+    for (name, *key), expected in TABLE_VALUES.items():
+        met = metabolites[name]
+        assert _value(met, tuple(key)) == expected, (name, key)
+        (prov,) = [p for k, p in _records(met) if set(k) == set(key)]
+        assert prov.status == "checked", (name, key, prov)
+
+
+def test_every_checked_value_is_pinned(metabolites: dict[str, Metabolite]) -> None:
+    # a value may only be called "checked" when the number read from the source is pinned here
+    pinned = {(name, frozenset(key)) for name, *key in TABLE_VALUES}
+    for met in metabolites.values():
+        for key, prov in _records(met):
+            if prov.status == "checked":
+                assert (met.name, frozenset(key)) in pinned, (met.name, key)
+
+
+def test_issue_discrepancies_resolved(metabolites: dict[str, Metabolite]) -> None:
+    # Glu: the lower-shift H3 couples with 8.4 Hz to the higher-shift H4 (revised table)
+    glu = metabolites["Glu"]
+    assert glu.group("3CH2a").shift_ppm < glu.group("3CH2b").shift_ppm
+    assert glu.group("4CH2a").shift_ppm < glu.group("4CH2b").shift_ppm
+    assert _value(glu, ("3CH2a", "4CH2b")) > 8.0 > 7.0 > _value(glu, ("3CH2a", "4CH2a"))
+    # NAAG: the table gives no couplings for the glutamate moiety; they are derived from free
+    # glutamate and say so
+    naag, couplings = metabolites["NAAG"], {}
     for c in naag.couplings:
         if c.a.startswith("glu"):
-            assert "from memory" in c.source
+            assert c.provenance.status == "derived" and "glutamate" in c.provenance.at, c
+            couplings[frozenset((c.a, c.b))] = c.j_hz
+    assert sorted(couplings.values()) == sorted(c.j_hz for c in glu.couplings)
+    # full spin systems: every proton of GABA, PCh, GPC (choline part), PE, Tau, Cho on its own
+    for name in ("GABA", "PCh", "PE", "Tau", "Cho", "GPC"):
+        ch2 = [g for g in metabolites[name].groups if "CH2" in g.label]
+        assert ch2 and all(g.protons == 1 for g in ch2), name
+
+
+def test_gaba_against_gissmo(metabolites: dict[str, Metabolite]) -> None:
+    gaba = metabolites["GABA"]
+    assert len(gaba.groups) == 6 and gaba.protons == 6
+    for label, shift in GISSMO_GABA_SHIFTS.items():
+        for suffix in "ab":
+            assert gaba.group(label + suffix).shift_ppm == pytest.approx(
+                shift, abs=GISSMO_SHIFT_TOL_PPM
+            )
+    for (p, q), mean in GISSMO_GABA_MEAN_J.items():
+        js = [c.j_hz for c in gaba.couplings if {c.a[:-1], c.b[:-1]} == {p, q}]
+        assert len(js) == 4
+        assert sum(js) / 4 == pytest.approx(mean, abs=GISSMO_J_TOL_HZ)
+        assert 4.2 - GISSMO_J_TOL_HZ <= min(js) and max(js) <= 10.0 + 1.0  # 4.2-10.0 Hz there
 
 
 def test_landmark_shifts(metabolites: dict[str, Metabolite]) -> None:
@@ -216,8 +280,8 @@ def test_landmark_shifts(metabolites: dict[str, Metabolite]) -> None:
     assert cr.group("NCH3").shift_ppm == pytest.approx(3.027, abs=1e-4)
     assert cr.group("2CH2").shift_ppm == pytest.approx(3.913, abs=1e-4)
     # Choline trimethyl singlet "near 3.2 ppm" (issue 3); Govindaraju 2000 (from memory):
-    # PCh 3.208, GPC 3.212.
-    for name in ("GPC", "PCh"):
+    # PCh 3.208, GPC 3.212; free choline 3.189 (revised table, checked).
+    for name in ("GPC", "PCh", "Cho"):
         group = metabolites[name].group("NCH33")
         assert group.protons == 9
         assert 3.185 <= group.shift_ppm <= 3.215, name
@@ -233,17 +297,22 @@ def test_landmark_shifts(metabolites: dict[str, Metabolite]) -> None:
 
 
 # ------------------------------------------------------------------- consistency of the data
-def test_sources_present_and_honest(metabolites: dict[str, Metabolite]) -> None:
-    # Every value names its source and says whether it was checked or recalled.
+def test_every_value_has_provenance(metabolites: dict[str, Metabolite]) -> None:
+    # Every shift and coupling carries its own record: status, and source and place in it.
     for met in metabolites.values():
         assert met.source.strip(), met.name
+        for key, prov in _records(met):
+            assert prov is not None and prov.status in STATUSES, (met.name, key)
+            if prov.status in ("checked", "corroborated", "from memory"):
+                assert prov.citation and prov.at, (met.name, key)
         for source in _effective_sources(met):
-            assert any(tag in source for tag in ("(checked)", "from memory", "common practice")), (
-                met.name,
-                source,
-            )
+            assert source.endswith(")"), source  # "<citation>, <where> (<status>)"
     for comp in load_macromolecules():
-        assert comp.source.strip(), comp.name
+        assert comp.provenance is not None and comp.shape_provenance is not None, comp.name
+        assert all(p.provenance is not None for p in comp.peaks), comp.name
+    items = provenance_items(metabolites.values(), load_macromolecules())
+    assert all(i.provenance.status != "override" for i in items)
+    assert not [i for i in items if "no record" in i.provenance.at]
 
 
 def test_couplings_reference_groups_once(metabolites: dict[str, Metabolite]) -> None:
@@ -330,17 +399,22 @@ def test_definitions_hash_tracks_content(tmp_path: Path) -> None:
 
 GOOD = """name = "Xx"
 source = "test"
+[references]
+book = "A textbook"
 [[group]]
 label = "A"
 shift_ppm = 1.0
 protons = 1
+provenance = { status = "from memory", ref = "book", at = "p. 1" }
 [[group]]
 label = "B"
 shift_ppm = 2.0
 protons = 2
+provenance = { status = "checked", ref = "book", at = "p. 2" }
 [[coupling]]
 groups = ["A", "B"]
 j_hz = 7.0
+provenance = { status = "derived", at = "mean of two" }
 """
 
 
@@ -348,7 +422,7 @@ j_hz = 7.0
     ("text", "message"),
     [
         (GOOD.replace('name = "Xx"\n', ""), "missing key 'name'"),
-        (GOOD.replace("shift_ppm = 2.0\n", ""), "group 2: missing key 'shift_ppm'"),
+        (GOOD.replace("shift_ppm = 2.0\n", ""), r"group 2 \(B\): missing key 'shift_ppm'"),
         (GOOD.replace('groups = ["A", "B"]', 'groups = ["A", "C"]'), "coupling 1"),
         (GOOD.replace('groups = ["A", "B"]', 'groups = ["A", "A"]'), "two different groups"),
         (GOOD + '[[coupling]]\ngroups = ["B", "A"]\nj_hz = 1.0\n', "coupled twice"),
@@ -356,11 +430,24 @@ j_hz = 7.0
         (GOOD.replace("protons = 2", "protons = 2.5"), "wrong type"),
         (GOOD.replace("protons = 2", "protons = 2\nfraction = 1.5"), "fraction"),
         (GOOD.replace("shift_ppm = 1.0", "shift_ppm = nan"), "finite"),
-        (GOOD.replace("protons = 2", "protons = 2\nfraction = 0.5"), "same fraction"),
+        (GOOD.replace("protons = 2", 'protons = 2\nfraction = 0.5\nfraction_provenance = '
+                      '{ status = "common practice", at = "x" }'), "same fraction"),
         (GOOD.replace('name = "Xx"', 'name = "Xx"\nkind = "lipid"'), "kind"),
         (GOOD.replace("[[group]]", "[group]", 1), "not valid TOML"),
         ("name = [unclosed\n", "not valid TOML"),
         ('name = "Xx"\n', "no \\[\\[group\\]\\] entries"),
+        (GOOD.replace('provenance = { status = "derived", at = "mean of two" }\n', ""),
+         "coupling 1 .*missing 'provenance'"),
+        (GOOD.replace('"from memory"', '"guessed"'), "status 'guessed' is not one of"),
+        (GOOD.replace('ref = "book", at = "p. 1"', 'ref = "paper", at = "p. 1"'),
+         "group 1 \\(A\\): reference 'paper' is not in \\[references\\]"),
+        (GOOD.replace(', at = "p. 2"', ""), "needs 'ref'"),
+        (GOOD.replace('at = "mean of two"', 'at = "x", page = "3"'), "unknown provenance keys"),
+        (GOOD.replace("protons = 1\n", "protons = 1\nfraction = 1.0\n", 1),
+         "A\\) fraction: missing"),
+        (GOOD.replace('"checked", ref = "book", at = "p. 2"',
+                      '"corroborated", ref = "book", at = "p. 2"'), "checked_against"),
+        (GOOD.replace('source = "test"', 'source = "test"\nin_default_basis = 1'), "true or false"),
     ],
 )
 def test_malformed_metabolite_file(tmp_path: Path, text: str, message: str) -> None:
@@ -394,16 +481,21 @@ def test_duplicate_names_across_files(tmp_path: Path) -> None:
     assert info.value.path == str(tmp_path / "two.toml")
 
 
+MM_ONE = '[[component]]\nname = "M"\nshift_ppm = 1.0\n'
+MM_PROV = (
+    'provenance = { status = "common practice", at = "x" }\n'
+    'shape_provenance = { status = "common practice", at = "y" }\n'
+)
+
+
 @pytest.mark.parametrize(
     ("text", "message"),
     [
         ("[[component]]\nshift_ppm = 1.0\nfwhm_ppm = 0.1\nprotons = 1\n", "missing key 'name'"),
-        ('[[component]]\nname = "M"\nshift_ppm = 1.0\nprotons = 1\n', "missing key 'fwhm_ppm'"),
-        ('[[component]]\nname = "M"\nshift_ppm = 1.0\nfwhm_ppm = 0\nprotons = 1\n', "> 0"),
-        (
-            '[[component]]\nname = "M"\nshift_ppm = 1.0\nfwhm_ppm = 0.1\nprotons = 1\n' * 2,
-            "repeated",
-        ),
+        (MM_ONE + "protons = 1\n" + MM_PROV, "missing key 'fwhm_ppm'"),
+        (MM_ONE + "fwhm_ppm = 0\nprotons = 1\n" + MM_PROV, "> 0"),
+        ((MM_ONE + "fwhm_ppm = 0.1\nprotons = 1\n" + MM_PROV) * 2, "repeated"),
+        (MM_ONE + "fwhm_ppm = 0.1\nprotons = 1\n", "missing 'provenance'"),
         ("[[component]\n", "not valid TOML"),
         ("component = 3\n", "array of tables"),
     ],

@@ -110,10 +110,15 @@ def test_a2b2_with_equivalent_groups_matches_nmrsim():
 
 
 @pytest.mark.parametrize(
-    ("name", "field_t"), [("Glu", 3.0), ("mI", 3.0), ("Glu", 1.5), ("Glu", 9.4), ("mI", 7.0)]
-)
+    ("name", "field_t"),
+    [
+        ("Glu", 3.0), ("mI", 3.0), ("Glu", 1.5), ("Glu", 9.4), ("mI", 7.0),
+        ("GABA", 3.0), ("PCh", 3.0), ("Cho", 3.0), ("Tau", 3.0), ("PE", 7.0), ("GPC", 3.0),
+    ],
+)  # fmt: skip
 def test_metabolite_matches_nmrsim(name, field_t):
-    # the issue asks for glutamate and myo-inositol at 3 T; the other fields cover 1.5-9.4 T
+    # the issue asks for glutamate and myo-inositol at 3 T; the other fields cover 1.5-9.4 T;
+    # GABA, PCh, Cho, Tau, PE and GPC as full systems of single protons (AA'XX' and AA'MM'XX')
     (met,) = load_metabolites([name])
     mhz = larmor_mhz(field_t)
     coupled = [(g, c) for g, c in met.spin_systems() if c]

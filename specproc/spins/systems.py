@@ -6,23 +6,30 @@ read and check against the literature. The layout of such a file::
     name = "Lac"                         # short name used in tables and the fit
     full_name = "lactate"
     kind = "metabolite"                  # "metabolite" | "water"
-    source = "Govindaraju V, Young K, Maudsley AA. NMR Biomed 2000;13:129-153"
+
+    [references]                         # key -> full citation, used by the records below
+    govindaraju2000 = "Govindaraju V, Young K, Maudsley AA. NMR Biomed 2000;13:129-153"
 
     [[group]]                            # one group of magnetically equivalent protons
     label = "2CH"
     shift_ppm = 4.0974
     protons = 1
-    source = "Govindaraju 2000, table 2 (from memory)"   # optional, per value
+    provenance = { status = "from memory", ref = "govindaraju2000", at = "table 2, lactate 2CH" }
 
     [[group]]
     label = "3CH3"
     shift_ppm = 1.3142
     protons = 3
+    provenance = { status = "checked", ref = "...", at = "..." }
 
     [[coupling]]
     groups = ["2CH", "3CH3"]
     j_hz = 6.933
-    source = "..."                       # optional
+    provenance = { status = "...", ref = "...", at = "..." }
+
+Every group (its shift) and every coupling (its J) must carry a ``provenance`` record: status,
+source and where in it (see :mod:`specproc.provenance`); a group with a ``fraction`` also needs
+``fraction_provenance``. The optional top-level ``source`` is a free-text summary for people.
 
 A metabolite with several non-interacting parts (e.g. the singlet and the coupled part of
 creatine, or the two anomers of glucose with their fractions) may give ``[[group]]`` a
@@ -49,6 +56,12 @@ from typing import Any
 
 from specproc._paths import basis_dir
 from specproc.errors import InvalidInputError
+from specproc.provenance import (
+    Provenance,
+    ProvenanceItem,
+    parse_provenance,
+    read_references,
+)
 
 __all__ = [
     "Coupling",
@@ -61,6 +74,7 @@ __all__ = [
     "load_macromolecules",
     "load_metabolite",
     "load_metabolites",
+    "provenance_items",
 ]
 
 MACROMOLECULE_FILE = "macromolecules.toml"
@@ -81,7 +95,11 @@ class SpinGroup:
     fraction : float
         Scale of this group's signal (e.g. anomer fraction), 1 by default.
     source : str
-        Literature source of the shift (empty when the metabolite's ``source`` applies).
+        Literature source of the shift, one line for people (from ``provenance``).
+    provenance : Provenance or None
+        Where the shift comes from (always set for groups read from a file).
+    fraction_provenance : Provenance or None
+        Where ``fraction`` comes from (set when the file gives a fraction).
     """
 
     label: str
@@ -89,6 +107,8 @@ class SpinGroup:
     protons: int
     fraction: float = 1.0
     source: str = ""
+    provenance: Provenance | None = None
+    fraction_provenance: Provenance | None = None
 
 
 @dataclass(frozen=True)
@@ -99,11 +119,18 @@ class Coupling:
     b: str
     j_hz: float
     source: str = ""
+    provenance: Provenance | None = None
 
 
 @dataclass(frozen=True)
 class Metabolite:
-    """A metabolite: spin groups, couplings, and where the values come from."""
+    """A metabolite: spin groups, couplings, and where the values come from.
+
+    ``in_default_basis`` (file key, default true) says whether the metabolite belongs to the
+    basis simulated when no metabolites are named (free choline, for example, is defined but
+    left out: in brain it is far below its phosphorylated forms and would only share their
+    3.2 ppm singlet in the fit).
+    """
 
     name: str
     full_name: str
@@ -112,6 +139,7 @@ class Metabolite:
     kind: str = "metabolite"
     source: str = ""
     path: str | None = None
+    in_default_basis: bool = True
 
     @property
     def protons(self) -> float:
@@ -157,16 +185,23 @@ class GaussianPeak:
     shift_ppm: float
     fwhm_ppm: float
     protons: float
+    provenance: Provenance | None = None
 
 
 @dataclass(frozen=True)
 class Macromolecule:
-    """A macromolecule or lipid component: one or more broad Gaussian lines."""
+    """A macromolecule or lipid component: one or more broad Gaussian lines.
+
+    ``provenance`` covers the line positions (a peak may carry its own), ``shape_provenance``
+    the widths and weights.
+    """
 
     name: str
     peaks: tuple[GaussianPeak, ...]
     source: str = ""
     kind: str = "macromolecule"
+    provenance: Provenance | None = None
+    shape_provenance: Provenance | None = None
 
     @property
     def protons(self) -> float:
@@ -229,12 +264,16 @@ def load_metabolite(path: str | os.PathLike[str]) -> Metabolite:
     """
     path = Path(path)
     table = _read_toml(path)
+    refs = read_references(table, path)
     name = _require(table, "name", str, path)
     if not name.strip():
         raise InvalidInputError("key 'name' is empty", path)
     kind = str(table.get("kind", "metabolite"))
     if kind not in KINDS:
         raise InvalidInputError(f"kind {kind!r} is not one of {', '.join(KINDS)}", path)
+    in_default = table.get("in_default_basis", True)
+    if not isinstance(in_default, bool):
+        raise InvalidInputError("key 'in_default_basis' must be true or false", path)
     groups = []
     for i, raw in enumerate(_tables(table, "group", path), start=1):
         where = f"group {i}"
@@ -244,13 +283,23 @@ def load_metabolite(path: str | os.PathLike[str]) -> Metabolite:
         fraction = _number(raw, "fraction", path, where) if "fraction" in raw else 1.0
         if not 0.0 < fraction <= 1.0:
             raise InvalidInputError(f"{where}: 'fraction' must be in (0, 1]", path)
+        label = _require(raw, "label", str, path, where)
+        where = f"{where} ({label})"
+        prov = parse_provenance(raw.get("provenance"), refs, where, path)
+        fraction_prov = None
+        if "fraction" in raw:
+            fraction_prov = parse_provenance(
+                raw.get("fraction_provenance"), refs, f"{where} fraction", path
+            )
         groups.append(
             SpinGroup(
-                label=_require(raw, "label", str, path, where),
+                label=label,
                 shift_ppm=_number(raw, "shift_ppm", path, where),
                 protons=int(protons),
                 fraction=fraction,
-                source=str(raw.get("source", "")),
+                source=prov.text(),
+                provenance=prov,
+                fraction_provenance=fraction_prov,
             )
         )
     if not groups:
@@ -271,12 +320,14 @@ def load_metabolite(path: str | os.PathLike[str]) -> Metabolite:
         if key in pairs:
             raise InvalidInputError(f"{where}: the pair {pair} is coupled twice", path)
         pairs.add(key)
+        prov = parse_provenance(raw.get("provenance"), refs, f"{where} {pair}", path)
         couplings.append(
             Coupling(
                 a=pair[0],
                 b=pair[1],
                 j_hz=_number(raw, "j_hz", path, where),
-                source=str(raw.get("source", "")),
+                source=prov.text(),
+                provenance=prov,
             )
         )
     met = Metabolite(
@@ -287,6 +338,7 @@ def load_metabolite(path: str | os.PathLike[str]) -> Metabolite:
         kind=kind,
         source=str(table.get("source", "")),
         path=str(path),
+        in_default_basis=in_default,
     )
     for members, _ in met.spin_systems():
         if len({g.fraction for g in members}) > 1:
@@ -352,6 +404,7 @@ def load_macromolecules(folder: str | os.PathLike[str] | None = None) -> list[Ma
     folder = Path(folder) if folder is not None else basis_dir()
     path = folder / MACROMOLECULE_FILE
     table = _read_toml(path)
+    refs = read_references(table, path)
     out = []
     names: set[str] = set()
     for i, raw in enumerate(_tables(table, "component", path), start=1):
@@ -359,19 +412,65 @@ def load_macromolecules(folder: str | os.PathLike[str] | None = None) -> list[Ma
         if name in names:
             raise InvalidInputError(f"component name {name!r} is repeated", path)
         names.add(name)
+        prov = parse_provenance(raw.get("provenance"), refs, f"component {name!r}", path)
+        shape = parse_provenance(
+            raw.get("shape_provenance"), refs, f"component {name!r} shape", path
+        )
         peaks_raw = _tables(raw, "peak", path) or [raw]
         peaks = []
         for j, p in enumerate(peaks_raw, start=1):
             where = f"component {name!r} peak {j}"
+            own = p.get("provenance") if p is not raw else None
             peak = GaussianPeak(
                 shift_ppm=_number(p, "shift_ppm", path, where),
                 fwhm_ppm=_number(p, "fwhm_ppm", path, where),
                 protons=_number(p, "protons", path, where),
+                provenance=prov if own is None else parse_provenance(own, refs, where, path),
             )
             if peak.fwhm_ppm <= 0 or peak.protons <= 0:
                 raise InvalidInputError(f"{where}: 'fwhm_ppm' and 'protons' must be > 0", path)
             peaks.append(peak)
-        out.append(Macromolecule(name=name, peaks=tuple(peaks), source=str(raw.get("source", ""))))
+        out.append(
+            Macromolecule(
+                name=name, peaks=tuple(peaks), source=str(raw.get("source", prov.text())),
+                provenance=prov, shape_provenance=shape,
+            )
+        )
+    return out
+
+
+def provenance_items(
+    metabolites: Iterable[Metabolite], macromolecules: Iterable[Macromolecule] = ()
+) -> list[ProvenanceItem]:
+    """One :class:`~specproc.provenance.ProvenanceItem` per shift, coupling, fraction and
+    macromolecule position, width and weight of the given definitions (kind ``"spin"``).
+
+    Values constructed in code without a record count as ``from memory``.
+    """
+    unknown = Provenance(status="from memory", at="no record (constructed in code)")
+    out = []
+    for met in metabolites:
+        for g in met.groups:
+            out.append(ProvenanceItem(
+                "spin", f"{met.name} {g.label} shift_ppm", g.shift_ppm, g.provenance or unknown
+            ))
+            if g.fraction_provenance is not None:
+                out.append(ProvenanceItem(
+                    "spin", f"{met.name} {g.label} fraction", g.fraction, g.fraction_provenance
+                ))
+        for c in met.couplings:
+            out.append(ProvenanceItem(
+                "spin", f"{met.name} {c.a}-{c.b} j_hz", c.j_hz, c.provenance or unknown
+            ))
+    for mm in macromolecules:
+        for k, p in enumerate(mm.peaks, start=1):
+            out.append(ProvenanceItem(
+                "spin", f"{mm.name} peak {k} shift_ppm", p.shift_ppm,
+                p.provenance or mm.provenance or unknown,
+            ))
+            shape = mm.shape_provenance or unknown
+            out.append(ProvenanceItem("spin", f"{mm.name} peak {k} fwhm_ppm", p.fwhm_ppm, shape))
+            out.append(ProvenanceItem("spin", f"{mm.name} peak {k} protons", p.protons, shape))
     return out
 
 
