@@ -1,0 +1,317 @@
+"""Score specproc on the independent validation corpus, run through the command line.
+
+Usage::
+
+    python benchmarks/validation/score.py CORPUS [-o RUNDIR] [--subset N] [--workers 2]
+                                          [--score-only] [--json FILE]
+
+1. When ``CORPUS/manifest.tsv`` does not exist the corpus is generated first
+   (``generate.py``; with ``--subset N`` only those scans).
+2. ``specproc batch MANIFEST -o RUNDIR --workers N`` runs with default settings, exactly as a
+   user would (with ``--subset N`` on a manifest of about N scans spread over the
+   categories). ``--score-only`` skips this and scores an existing RUNDIR.
+3. The estimates in ``RUNDIR/cohort.tsv`` are compared with ``CORPUS/truth.json``: relative
+   error ``estimate / truth - 1`` of the ratios to tCr (tNAA, tCho, mI, Glu, Glx, Lac) and of the
+   water-referenced tNAA (mM of GM+WM tissue, tissue scans only). The reported bound is the SD of
+   the ratio that specproc propagates from the fit covariance (``ratio_tcr_sd``; for tNAA in mM,
+   ``conc_molar_sd_mm``); an error counts as covered when ``|estimate - truth| <= 2 × SD``.
+
+It prints markdown tables per category (3 T TE 30 by SNR band, 1.5 T, 7 T, TE 144, lactate,
+phantoms, timing not given): median and 95th percentile of |error| and the covered fraction,
+the signed median error, and the issue's targets with PASS / MISS. CPU time of the run is that
+of the child processes (``resource.getrusage``), since the machine may be shared.
+
+Research use only; not a medical device.
+"""
+
+from __future__ import annotations
+
+import argparse
+import csv
+import json
+import math
+import os
+import resource
+import subprocess
+import sys
+import time
+from collections.abc import Callable, Sequence
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE))
+import generate as gen  # noqa: E402
+
+#: Measures of the tables: (label, cohort metabolite, kind) with kind "ratio" or "conc".
+MEASURES: tuple[tuple[str, str, str], ...] = (
+    ("tNAA", "tNAA", "ratio"), ("tCho", "tCho", "ratio"), ("mI", "mI", "ratio"),
+    ("Glu", "Glu", "ratio"), ("Glx", "Glx", "ratio"), ("Lac", "Lac", "ratio"),
+    ("tNAA mM", "tNAA", "conc"),
+)
+
+SNR_BANDS = ((20.0, 40.0), (40.0, 80.0), (80.0, 151.0))
+
+
+def _rows(truths: Sequence[dict[str, Any]]) -> list[tuple[str, Callable[[dict[str, Any]], bool],
+                                                          tuple[str, ...]]]:
+    """Row label, scan predicate, measures shown."""
+    base = ("tNAA", "tCho", "mI", "Glu", "Glx", "tNAA mM")
+    rows: list[tuple[str, Callable[[dict[str, Any]], bool], tuple[str, ...]]] = []
+    for lo, hi in SNR_BANDS:
+        rows.append((f"3 T TE 30, SNR {lo:g}-{min(hi, 150):g}",
+                     lambda t, lo=lo, hi=hi: t["category"] == "3T-TE30"
+                     and lo <= t["spec"]["snr"] < hi, base))
+    rows.append(("3 T TE 30, SNR >= 25 (target)",
+                 lambda t: t["category"] == "3T-TE30" and t["spec"]["snr"] >= 25, base))
+    rows.append(("3 T TE 30, TE1 in manifest",
+                 lambda t: t["category"] == "3T-TE30" and t["spec"]["timing"] == "manifest", base))
+    rows.append(("1.5 T TE 30", lambda t: t["category"] == "1.5T-TE30", base))
+    rows.append(("7 T TE 30", lambda t: t["category"] == "7T-TE30", base))
+    rows.append(("3 T TE 144", lambda t: t["category"] == "3T-TE144", base))
+    rows.append(("lactate >= 3 mM (TE 144)",
+                 lambda t: t["category"] == "lactate" and t["spec"]["te_s"] > 0.1,
+                 (*base, "Lac")))
+    rows.append(("lactate >= 3 mM (TE 30)",
+                 lambda t: t["category"] == "lactate" and t["spec"]["te_s"] < 0.1,
+                 (*base, "Lac")))
+    rows.append(("phantoms", lambda t: t["category"] == "phantom",
+                 ("tNAA", "tCho", "mI", "Glu", "Glx", "Lac")))
+    rows.append(("timing not given (TE 30)",
+                 lambda t: t["category"] == "timing-none" and t["spec"]["te_s"] < 0.1, base))
+    rows.append(("timing not given (TE 144)",
+                 lambda t: t["category"] == "timing-none" and t["spec"]["te_s"] > 0.1, base))
+    return rows
+
+
+# ------------------------------------------------------------------ running
+def specproc_command() -> list[str]:
+    """The ``specproc`` console script of this interpreter's environment."""
+    script = Path(sys.executable).with_name("specproc")
+    if script.exists():
+        return [str(script)]
+    return [sys.executable, "-c", "from specproc.cli import main; main()"]
+
+
+def subset_manifest(corpus: Path, n: int) -> Path:
+    """A manifest of about ``n`` scans of the corpus, spread over the categories."""
+    truth = json.loads((corpus / "truth.json").read_text())
+    present = {t["scan_id"] for t in truth["scans"]}
+    plan = gen.plan_corpus(truth["seed"], truth["preset"])
+    wanted = {s.scan_id for s in gen.select_subset([s for s in plan if s.scan_id in present], n)}
+    with open(corpus / "manifest.tsv", newline="") as fh:
+        reader = csv.DictReader(fh, delimiter="\t")
+        fields = list(reader.fieldnames or [])
+        kept = [row for row in reader if row["scan_id"] in wanted]
+    path = corpus / f"manifest-subset-{n}.tsv"
+    with open(path, "w", newline="") as fh:
+        writer = csv.DictWriter(fh, fieldnames=fields, delimiter="\t", lineterminator="\n")
+        writer.writeheader()
+        writer.writerows(kept)
+    return path
+
+
+def run_batch(manifest: Path, run_dir: Path, workers: int) -> dict[str, float]:
+    """``specproc batch MANIFEST -o RUNDIR --workers N``; wall and children's CPU time, s."""
+    cmd = [*specproc_command(), "batch", str(manifest), "-o", str(run_dir),
+           "--workers", str(workers), "--no-progress"]
+    print("$ " + " ".join(cmd), file=sys.stderr)
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
+    start = time.perf_counter()
+    env = dict(os.environ, OPENBLAS_NUM_THREADS="1", OMP_NUM_THREADS="1", MKL_NUM_THREADS="1")
+    proc = subprocess.run(cmd, env=env, capture_output=True, text=True)
+    wall = time.perf_counter() - start
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
+    sys.stderr.write(proc.stdout[-2000:] + proc.stderr[-2000:])
+    if proc.returncode != 0:
+        raise SystemExit(f"specproc batch failed with exit status {proc.returncode}")
+    cpu = (after.ru_utime - before.ru_utime) + (after.ru_stime - before.ru_stime)
+    return {"wall_s": wall, "cpu_s": cpu}
+
+
+# ------------------------------------------------------------------ scoring
+def read_cohort(run_dir: Path) -> tuple[dict[str, dict[str, dict[str, float]]], dict[str, str]]:
+    """Estimates by scan and metabolite, and the status of every scan."""
+    est: dict[str, dict[str, dict[str, float]]] = {}
+    with open(run_dir / "cohort.tsv", newline="") as fh:
+        for row in csv.DictReader(fh, delimiter="\t"):
+            est.setdefault(row["scan_id"], {})[row["metabolite"]] = {
+                k: _num(row.get(k)) for k in ("ratio_tcr", "ratio_tcr_sd", "conc_molar_mm",
+                                              "conc_molar_sd_mm")}
+    status: dict[str, str] = {}
+    with open(run_dir / "cohort_qc.tsv", newline="") as fh:
+        for row in csv.DictReader(fh, delimiter="\t"):
+            status[row["scan_id"]] = row["status"]
+    return est, status
+
+
+def _num(text: str | None) -> float:
+    try:
+        return float(text) if text not in (None, "", "n/a") else math.nan
+    except ValueError:
+        return math.nan
+
+
+def errors(truths: Sequence[dict[str, Any]], est: dict[str, dict[str, dict[str, float]]],
+           label: str, metabolite: str, kind: str) -> dict[str, Any]:
+    """Relative errors (%), coverage flags and the number of missing estimates."""
+    rel: list[float] = []
+    covered: list[bool] = []
+    missing = 0
+    for t in truths:
+        if kind == "ratio":
+            true = t["ratio_tcr"][label]
+            key, sd_key = "ratio_tcr", "ratio_tcr_sd"
+        else:
+            if not t.get("conc_molar_mm"):
+                continue
+            true = t["conc_molar_mm"][metabolite]
+            key, sd_key = "conc_molar_mm", "conc_molar_sd_mm"
+        row = est.get(t["scan_id"], {}).get(metabolite)
+        value = math.nan if row is None else row[key]
+        if not math.isfinite(value) or true <= 0:
+            missing += 1
+            continue
+        rel.append(100.0 * (value / true - 1.0))
+        sd = math.nan if row is None else row[sd_key]
+        covered.append(math.isfinite(sd) and abs(value - true) <= 2 * sd)
+    return {"rel_pct": rel, "covered": covered, "missing": missing}
+
+
+def summarise(e: dict[str, Any]) -> dict[str, float]:
+    rel = np.asarray(e["rel_pct"], dtype=float)
+    if rel.size == 0:
+        return {"n": 0, "missing": e["missing"]}
+    return {
+        "n": int(rel.size), "missing": e["missing"],
+        "median_abs_pct": float(np.median(np.abs(rel))),
+        "p95_abs_pct": float(np.percentile(np.abs(rel), 95)),
+        "median_pct": float(np.median(rel)),
+        "covered_pct": 100.0 * float(np.mean(e["covered"])),
+    }
+
+
+def score(corpus: Path, run_dir: Path) -> dict[str, Any]:
+    """Every row × measure summary, and the scan counts."""
+    truths = json.loads((corpus / "truth.json").read_text())["scans"]
+    est, status = read_cohort(run_dir)
+    truths = [t for t in truths if t["scan_id"] in status]
+    measures = {m[0]: m for m in MEASURES}
+    out: dict[str, Any] = {"rows": [], "n_scans": len(truths),
+                           "n_failed": sum(1 for s in status.values() if s == "failed")}
+    for label, pred, shown in _rows(truths):
+        sel = [t for t in truths if pred(t)]
+        if not sel:
+            continue
+        failed = sum(1 for t in sel if status.get(t["scan_id"]) == "failed")
+        cells = {name: summarise(errors(sel, est, *measures[name])) for name in shown}
+        out["rows"].append({"label": label, "n": len(sel), "failed": failed, "cells": cells})
+    return out
+
+
+def _cell(c: dict[str, float] | None, what: str) -> str:
+    if not c or c.get("n", 0) == 0:
+        return ""
+    if what == "abs":
+        return f"{c['median_abs_pct']:.1f} / {c['p95_abs_pct']:.0f} / {c['covered_pct']:.0f}"
+    return f"{c['median_pct']:+.1f}"
+
+
+def markdown(result: dict[str, Any]) -> str:
+    """The tables as markdown text."""
+    names = [m[0] for m in MEASURES]
+    head = "| scans | n | " + " | ".join(names) + " |"
+    rule = "|---|---|" + "---|" * len(names)
+    lines = [
+        "Median |error| % / 95th percentile |error| % / % of errors inside 2 × the reported SD "
+        "(ratios to tCr; tNAA mM water-referenced):", "", head, rule,
+    ]
+    for row in result["rows"]:
+        n = f"{row['n']}" + (f" ({row['failed']} failed)" if row["failed"] else "")
+        lines.append(f"| {row['label']} | {n} | "
+                     + " | ".join(_cell(row["cells"].get(m), "abs") for m in names) + " |")
+    lines += ["", "Signed median error % (bias):", "", head, rule]
+    for row in result["rows"]:
+        lines.append(f"| {row['label']} | {row['n']} | "
+                     + " | ".join(_cell(row["cells"].get(m), "bias") for m in names) + " |")
+    lines += ["", "Targets of issue 10:", ""]
+    lines += [f"- {t}" for t in targets(result)]
+    return "\n".join(lines)
+
+
+def targets(result: dict[str, Any]) -> list[str]:
+    """PASS / MISS against the issue's targets (rows that were scored)."""
+    rows = {r["label"]: r["cells"] for r in result["rows"]}
+    out: list[str] = []
+
+    def check(row: str, measure: str, limit: float, stat: str = "median_abs_pct") -> None:
+        c = rows.get(row, {}).get(measure)
+        if not c or c.get("n", 0) == 0:
+            return
+        value = c[stat]
+        ok = value >= limit if stat == "covered_pct" else value <= limit
+        rel = ">=" if stat == "covered_pct" else "<="
+        what = {"median_abs_pct": "median |err|", "p95_abs_pct": "p95 |err|",
+                "covered_pct": "inside 2 SD"}[stat]
+        out.append(f"{'PASS' if ok else 'MISS'} {row}: {measure} {what} {value:.1f} % "
+                   f"(target {rel} {limit:g} %)")
+
+    main = "3 T TE 30, SNR >= 25 (target)"
+    for measure, limit in (("tNAA", 4), ("tCho", 4), ("mI", 7), ("Glx", 7), ("Glu", 10)):
+        check(main, measure, limit)
+        check(main, measure, 2.5 * limit, "p95_abs_pct")
+    for row in ("1.5 T TE 30", "7 T TE 30", "3 T TE 144"):
+        for measure in ("tNAA", "tCho"):
+            check(row, measure, 6)
+    check("lactate >= 3 mM (TE 144)", "Lac", 15)
+    check("lactate >= 3 mM (TE 30)", "Lac", 15)
+    for measure in ("tNAA", "tCho", "mI", "Glu", "Lac"):
+        check("phantoms", measure, 3, "p95_abs_pct")
+    for row in (main, "1.5 T TE 30", "7 T TE 30", "3 T TE 144", "lactate >= 3 mM (TE 144)"):
+        for measure in ("tNAA", "tCho", "mI", "Glx", "Lac"):
+            if measure == "Lac" and not row.startswith("lactate"):
+                continue
+            check(row, measure, 85, "covered_pct")
+    return out
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("corpus", type=Path, help="corpus folder (generated when missing)")
+    parser.add_argument("-o", "--output", type=Path, default=None,
+                        help="run folder of specproc batch (default CORPUS/run[-subset-N])")
+    parser.add_argument("--subset", type=int, default=None, metavar="N",
+                        help="about N scans spread over the categories (quick run)")
+    parser.add_argument("--workers", type=int, default=2)
+    parser.add_argument("--score-only", action="store_true",
+                        help="score an existing run folder without running specproc")
+    parser.add_argument("--json", type=Path, default=None, help="also write the scores here")
+    args = parser.parse_args(argv)
+    corpus: Path = args.corpus
+    if not (corpus / "manifest.tsv").exists():
+        gen.generate(corpus, subset=args.subset, progress=True)
+    manifest = corpus / "manifest.tsv"
+    if args.subset is not None:
+        manifest = subset_manifest(corpus, args.subset)
+    run_dir = args.output or corpus / ("run" if args.subset is None else
+                                       f"run-subset-{args.subset}")
+    cost = None
+    if not args.score_only:
+        cost = run_batch(manifest, run_dir, args.workers)
+    result = score(corpus, run_dir)
+    result["cost"] = cost
+    print(f"specproc on the validation corpus: {result['n_scans']} scans, "
+          f"{result['n_failed']} failed"
+          + (f"; run {cost['wall_s']:.0f} s wall, {cost['cpu_s']:.0f} s CPU (children)"
+             if cost else ""))
+    print()
+    print(markdown(result))
+    if args.json:
+        args.json.write_text(json.dumps(result, indent=1) + "\n")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
