@@ -52,7 +52,6 @@ from specproc.errors import InvalidInputError
 __all__ = [
     "KEY_RATIOS",
     "OUTPUT_FILES",
-    "QC_CRLB_METABOLITES",
     "ScanResult",
     "analyse_scan",
     "resolve_config",
@@ -72,10 +71,6 @@ OUTPUT_FILES: Mapping[str, str] = {
 
 #: Ratios summarised by :meth:`ScanResult.summary` (``<name>/tCr``).
 KEY_RATIOS: tuple[str, ...] = ("NAA", "tNAA", "tCho", "mI", "Glx")
-
-#: Metabolites whose CRLB is checked against the QC threshold (common practice: the reported
-#: main metabolites, not every basis member).
-QC_CRLB_METABOLITES: tuple[str, ...] = ("NAA", "tNAA", "tCr", "tCho", "mI", "Glx")
 
 _CONC_SUMMARY = ("tNAA", "tCr", "tCho", "mI", "Glx")
 
@@ -354,8 +349,6 @@ def analyse_scan(
     config: Any = None,
     protocol: Any = None,
     title: str | None = None,
-    qc_thresholds: Mapping[str, Any] | None = None,
-    relaxation_overrides: Mapping[str, Any] | str | os.PathLike[str] | None = None,
 ) -> ScanResult:
     """Analyse one scan: preprocessing, basis, fit, quantification, QC and notes.
 
@@ -373,17 +366,15 @@ def analyse_scan(
     basis : BasisSet or path, optional
         Basis to fit with; default simulated for ``protocol`` (cached).
     config : None, path or mapping, optional
-        Configuration (see :func:`resolve_config`).
+        Configuration (see :func:`resolve_config`): preprocessing, ``[protocol]``, ``[fit]``,
+        the QC thresholds ``[qc]`` (with ``crlb_checked``, the metabolites whose bound is
+        checked) and relaxation overrides ``[relaxation]``.
     protocol : Protocol, optional
         Basis protocol (default :func:`specproc.protocol.resolve_protocol` of the scan and the
         configuration). With ``basis`` too, the caller says that the basis was simulated for
         this protocol (a cohort run shares one basis file per protocol); it is then recorded.
     title : str, optional
         Label of the scan (default from the file name).
-    qc_thresholds : mapping, optional
-        QC flag thresholds (:class:`specproc.qc.QCThresholds` fields).
-    relaxation_overrides : mapping or path, optional
-        Relaxation times merged over the bundled table.
 
     Returns
     -------
@@ -406,7 +397,8 @@ def analyse_scan(
     scan = _as_scan(scan, "scan")
     water = _as_scan(water, "water reference")
     cfg, cfg_source = resolve_config(config)
-    thresholds = QCThresholds.from_mapping(qc_thresholds)
+    thresholds = QCThresholds.from_config(cfg.get("qc"))
+    relaxation_overrides = cfg.get("relaxation") or None
     tissue_fractions = None if tissue is None else validate_tissue_fractions(tissue)
     label = title if title is not None else _default_title(scan)
     notes: list[str] = []
@@ -472,7 +464,7 @@ def analyse_scan(
         if np.all(np.isfinite(report.shifts_hz)):
             transients["shifts_hz"] = report.shifts_hz
     crlb = {}
-    for name in QC_CRLB_METABOLITES:
+    for name in (cfg.get("qc") or {}).get("crlb_checked", ()):
         if name in fit.names:
             crlb[name] = float(fit.crlb_percent[fit.names.index(name)])
         elif name in fit.combined:

@@ -503,7 +503,7 @@ def test_forward_model_of_a_voxel_is_inverted():
 def test_docstring_examples_run():
     import doctest
 
-    import specproc.quantify
+    import specproc.quantify.result
 
-    result = doctest.testmod(specproc.quantify)
+    result = doctest.testmod(specproc.quantify.result)
     assert result.attempted > 0 and result.failed == 0

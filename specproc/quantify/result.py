@@ -1,0 +1,426 @@
+"""The quantification of one scan: :func:`quantify` and its result :class:`Quantification`.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from specproc._json import to_jsonable
+from specproc.constants import WATER_MOLAR_MM
+from specproc.errors import InvalidInputError
+from specproc.quantify.relaxation import _RELAX_FORMULA, RelaxationTimes, load_relaxation_times
+from specproc.quantify.sums import (
+    DEFAULT_COMBINATIONS,
+    _as_cov,
+    _ratio_formula,
+    combine_linear,
+    ratio_linear,
+)
+from specproc.quantify.water import (
+    _MOLAL_FORMULA,
+    _MOLAR_FORMULA,
+    _SYMBOLS,
+    WATER_PROTONS,
+    _positive,
+    concentration_factors,
+)
+
+__all__ = ["NO_WATER_STATEMENT", "Quantification", "quantify"]
+
+#: The plain statement recorded when there is no water reference.
+NO_WATER_STATEMENT = "no water reference: ratios to tCr only"
+
+
+@dataclass(frozen=True)
+class Quantification:
+    """Ratios and (with a water reference) concentrations of one scan.
+
+    Attributes
+    ----------
+    names : tuple of str
+        Fitted members followed by the combined sums present.
+    combinations : dict
+        Sum name -> members used.
+    amplitudes, amplitude_sd : dict
+        Amplitudes as given (and sums), with SDs (NaN without covariance).
+    reference : str
+        Denominator of ``ratios`` (``"tCr"``).
+    ratios, ratio_sd : dict
+        Molecule ratios to the reference (proton-normalised, no relaxation correction).
+    ratios_to_water, ratios_to_water_sd : dict or None
+        ``(S_M/N_M) / (S_W/N_W)``: molecule ratio to water without tissue or relaxation
+        corrections; ``None`` without a water reference.
+    conc_molar_mm, conc_molar_sd_mm : dict or None
+        mmol per litre of GM+WM tissue (CSF-corrected), ``None`` without a water reference.
+    conc_molal_mmol_kg, conc_molal_sd_mmol_kg : dict or None
+        mmol per kg of GM+WM tissue water.
+    statement : str
+        Plain statement of what was computed (e.g. :data:`NO_WATER_STATEMENT`).
+    formula : dict
+        The equations as text.
+    constants : dict
+        Every constant used (JSON-serialisable).
+    notes : tuple of str
+        Warnings and assumptions.
+    """
+
+    names: tuple[str, ...]
+    combinations: dict[str, tuple[str, ...]]
+    amplitudes: dict[str, float]
+    amplitude_sd: dict[str, float]
+    reference: str
+    ratios: dict[str, float]
+    ratio_sd: dict[str, float]
+    ratios_to_water: dict[str, float] | None
+    ratios_to_water_sd: dict[str, float] | None
+    conc_molar_mm: dict[str, float] | None
+    conc_molar_sd_mm: dict[str, float] | None
+    conc_molal_mmol_kg: dict[str, float] | None
+    conc_molal_sd_mmol_kg: dict[str, float] | None
+    statement: str
+    formula: dict[str, str]
+    constants: dict[str, Any]
+    notes: tuple[str, ...] = ()
+
+    @property
+    def water_referenced(self) -> bool:
+        """True when concentrations were computed."""
+        return self.conc_molar_mm is not None
+
+    def rows(self) -> list[dict[str, Any]]:
+        """One plain dict per member or sum (for tidy tables)."""
+        nan = float("nan")
+        rows = []
+        for n in self.names:
+            row: dict[str, Any] = {
+                "name": n,
+                "members": list(self.combinations.get(n, (n,))),
+                "amplitude": self.amplitudes[n],
+                "amplitude_sd": self.amplitude_sd[n],
+                f"ratio_to_{self.reference}": self.ratios.get(n, nan),
+                f"ratio_to_{self.reference}_sd": self.ratio_sd.get(n, nan),
+            }
+            columns = {
+                "ratio_to_water": self.ratios_to_water,
+                "ratio_to_water_sd": self.ratios_to_water_sd,
+                "conc_molar_mm": self.conc_molar_mm,
+                "conc_molar_sd_mm": self.conc_molar_sd_mm,
+                "conc_molal_mmol_kg": self.conc_molal_mmol_kg,
+                "conc_molal_sd_mmol_kg": self.conc_molal_sd_mmol_kg,
+            }
+            for key, table in columns.items():
+                if table is not None:
+                    row[key] = table.get(n, nan)
+            rows.append(row)
+        return rows
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-serialisable dict (NaN and infinity written as ``None``)."""
+        return to_jsonable(
+            {
+                "statement": self.statement,
+                "reference": self.reference,
+                "water_referenced": self.water_referenced,
+                "names": list(self.names),
+                "combinations": {k: list(v) for k, v in self.combinations.items()},
+                "amplitudes": self.amplitudes,
+                "amplitude_sd": self.amplitude_sd,
+                "ratios": self.ratios,
+                "ratio_sd": self.ratio_sd,
+                "ratios_to_water": self.ratios_to_water,
+                "ratios_to_water_sd": self.ratios_to_water_sd,
+                "conc_molar_mm": self.conc_molar_mm,
+                "conc_molar_sd_mm": self.conc_molar_sd_mm,
+                "conc_molal_mmol_kg": self.conc_molal_mmol_kg,
+                "conc_molal_sd_mmol_kg": self.conc_molal_sd_mmol_kg,
+                "units": {
+                    "conc_molar_mm": "mmol per litre of GM+WM tissue (CSF-corrected)",
+                    "conc_molal_mmol_kg": "mmol per kg of GM+WM tissue water",
+                    "ratios": f"molecule ratio to {self.reference} (no relaxation correction)",
+                },
+                "formula": self.formula,
+                "constants": self.constants,
+                "notes": list(self.notes),
+            }
+        )
+
+
+def quantify(
+    amplitudes: Mapping[str, float] | Sequence[float] | np.ndarray,
+    *,
+    names: Sequence[str] | None = None,
+    covariance: Any = None,
+    amplitude_sd: Sequence[float] | np.ndarray | None = None,
+    protons: Mapping[str, float] | None = None,
+    proton_normalised: bool = False,
+    water_amplitude: float | None = None,
+    water_amplitude_sd: float | None = None,
+    water_proton_normalised: bool = False,
+    volume_fractions: Mapping[str, float] | None = None,
+    te_s: float | None = None,
+    tr_s: float | None = None,
+    water_te_s: float | None = None,
+    water_tr_s: float | None = None,
+    field_t: float | None = None,
+    relaxation: RelaxationTimes | None = None,
+    relaxation_overrides: Mapping[str, Any] | str | os.PathLike[str] | None = None,
+    water_content: Mapping[str, float] | None = None,
+    water_protons: float = WATER_PROTONS,
+    water_mm: float = WATER_MOLAR_MM,
+    combinations: Mapping[str, Sequence[str]] = DEFAULT_COMBINATIONS,
+    reference: str = "tCr",
+    fraction_atol: float = 0.01,
+) -> Quantification:
+    """Ratios to tCr and, with a water reference, tissue-corrected concentrations.
+
+    Parameters
+    ----------
+    amplitudes : mapping of str to float, or (n,) array_like with ``names``
+        Fitted amplitudes of the basis members (macromolecules may be included; they get ratios
+        but their concentrations use the default relaxation and their proton weights).
+    names : sequence of str, optional
+        Member names when ``amplitudes`` is an array (default: the mapping's keys in order).
+    covariance : (n, n) array_like, optional
+        Covariance of the amplitudes in the order of ``names`` (e.g. Cramér-Rao covariance);
+        propagated to every sum, ratio and concentration.
+    amplitude_sd : (n,) array_like, optional
+        SDs, used as an uncorrelated covariance when ``covariance`` is not given.
+    protons : mapping of str to float, optional
+        Protons per molecule of each member (e.g. ``dict(zip(basis.names, basis.protons))``);
+        required unless ``proton_normalised``.
+    proton_normalised : bool
+        Whether the amplitudes are per proton (per molecule; see :func:`concentration_factors`).
+    water_amplitude : float, optional
+        Water signal area on the same scale; ``None`` gives ratios only.
+    water_amplitude_sd : float, optional
+        Its SD (independent of the metabolite amplitudes); default 0.
+    water_proton_normalised : bool
+        Whether ``water_amplitude`` is per proton.
+    volume_fractions : mapping, optional
+        GM, WM, CSF volume fractions; required with a water reference. (Without segmentation a
+        caller may pass pure-tissue fractions and say so.)
+    te_s, tr_s : float, optional
+        Metabolite TE and TR, s; required with a water reference.
+    water_te_s, water_tr_s : float, optional
+        Water reference TE and TR (default: ``te_s``, ``tr_s``).
+    field_t : float, optional
+        Field, T, to pick relaxation times when ``relaxation`` is not given.
+    relaxation : RelaxationTimes, optional
+        Relaxation times (default ``load_relaxation_times(field_t, overrides=...)``).
+    relaxation_overrides : mapping or path, optional
+        Overrides passed to :func:`load_relaxation_times`.
+    water_content, water_protons, water_mm, fraction_atol
+        See :func:`concentration_factors`.
+    combinations : mapping
+        Sums to report (default :data:`DEFAULT_COMBINATIONS`).
+    reference : str
+        Member or sum used as the ratio denominator (default ``"tCr"``).
+
+    Returns
+    -------
+    Quantification
+
+    Examples
+    --------
+    >>> q = quantify({"NAA": 12.0, "Cr": 6.0, "PCr": 2.0}, proton_normalised=True)
+    >>> q.statement
+    'no water reference: ratios to tCr only'
+    >>> round(q.ratios["NAA"], 3)
+    1.5
+    >>> q = quantify({"NAA": 12.0, "Cr": 6.0, "PCr": 2.0}, proton_normalised=True,
+    ...              water_amplitude=3.0e4, volume_fractions={"gm": 0.6, "wm": 0.3, "csf": 0.1},
+    ...              te_s=0.030, tr_s=2.0, field_t=3.0)
+    >>> round(q.conc_molar_mm["tNAA"], 2), round(q.conc_molal_mmol_kg["tNAA"], 2)
+    (31.9, 43.3)
+    """
+    if isinstance(amplitudes, Mapping):
+        member_names = [str(k) for k in amplitudes] if names is None else [str(n) for n in names]
+        try:
+            values = np.array([float(amplitudes[n]) for n in member_names], dtype=float)
+        except KeyError as exc:
+            raise InvalidInputError(f"no amplitude for {exc.args[0]!r}") from None
+    else:
+        if names is None:
+            raise InvalidInputError("names are needed when amplitudes are given as an array")
+        member_names = [str(n) for n in names]
+        values = np.asarray(amplitudes, dtype=float).reshape(-1)
+        if values.size != len(member_names):
+            raise InvalidInputError(f"{values.size} amplitudes but {len(member_names)} names")
+    if len(set(member_names)) != len(member_names):
+        raise InvalidInputError(f"repeated member names {member_names}")
+    if not np.all(np.isfinite(values)):
+        raise InvalidInputError("amplitudes must be finite numbers")
+    n = values.size
+    cov = _as_cov(covariance, amplitude_sd, n)
+    notes: list[str] = []
+    if cov is None:
+        notes.append("no covariance given: SDs are NaN")
+    clash = [c for c in combinations if c in member_names]
+    combos = {k: v for k, v in combinations.items() if k not in member_names}
+    if clash:
+        notes.append(f"fitted members named like sums kept as fitted: {clash}")
+
+    # molecule units u_i = A_i (per proton) or A_i / N_i (signal areas)
+    if proton_normalised:
+        per_molecule = np.ones(n)
+    else:
+        if protons is None:
+            raise InvalidInputError(
+                "the proton counts of the members are needed (amplitudes are not "
+                "proton-normalised)"
+            )
+        missing = [m for m in member_names if m not in protons]
+        if missing:
+            raise InvalidInputError(f"no proton count for {missing}")
+        per_molecule = np.array(
+            [1.0 / _positive(protons[m], f"protons of {m}", None) for m in member_names]
+        )
+
+    amp_sums = combine_linear(values, cov, names=member_names, combinations=combos)
+    out_names = [*member_names, *amp_sums]
+    combos_used = {k: v[2] for k, v in amp_sums.items()}
+    sd_members = (
+        np.full(n, np.nan) if cov is None else np.sqrt(np.clip(np.diag(cov), 0.0, None))
+    )
+    amps = {m: float(values[i]) for i, m in enumerate(member_names)}
+    amp_sd = {m: float(sd_members[i]) for i, m in enumerate(member_names)}
+    for k, (val, sd, _members) in amp_sums.items():
+        amps[k] = val
+        amp_sd[k] = sd
+
+    def selector(name: str, weights: np.ndarray) -> np.ndarray:
+        u = np.zeros(n)
+        for m in combos_used.get(name, (name,)):
+            i = member_names.index(m)
+            u[i] = weights[i]
+        return u
+
+    # ---- ratios to the reference (molecule ratios)
+    ratios: dict[str, float] = {}
+    ratio_sd: dict[str, float] = {}
+    if reference in out_names:
+        den = selector(reference, per_molecule)
+        for name in out_names:
+            ratios[name], ratio_sd[name] = ratio_linear(
+                selector(name, per_molecule), den, values, cov
+            )
+        if not ratios[reference] == ratios[reference]:  # NaN: zero denominator
+            notes.append(f"{reference} amplitude is zero: ratios undefined")
+    else:
+        notes.append(f"reference {reference!r} not fitted: no ratios")
+
+    formula = {"relaxation": _RELAX_FORMULA, "symbols": _SYMBOLS}
+    if water_amplitude is None:
+        statement = NO_WATER_STATEMENT if reference == "tCr" else (
+            f"no water reference: ratios to {reference} only"
+        )
+        formula["ratio"] = _ratio_formula(reference)
+        constants: dict[str, Any] = {
+            "reference": reference,
+            "proton_normalised": bool(proton_normalised),
+            "protons": None if protons is None else {m: protons.get(m) for m in member_names},
+        }
+        return Quantification(
+            names=tuple(out_names), combinations=combos_used, amplitudes=amps,
+            amplitude_sd=amp_sd, reference=reference, ratios=ratios, ratio_sd=ratio_sd,
+            ratios_to_water=None, ratios_to_water_sd=None, conc_molar_mm=None,
+            conc_molar_sd_mm=None, conc_molal_mmol_kg=None, conc_molal_sd_mmol_kg=None,
+            statement=statement, formula=formula, constants=to_jsonable(constants),
+            notes=tuple(notes),
+        )
+
+    # ---- water referencing
+    if volume_fractions is None or te_s is None or tr_s is None:
+        raise InvalidInputError(
+            "water-referenced concentrations need volume_fractions (gm, wm, csf), te_s and tr_s"
+        )
+    if relaxation is None:
+        if field_t is None:
+            raise InvalidInputError(
+                "field_t (or relaxation times) is needed with a water reference"
+            )
+        relaxation = load_relaxation_times(field_t, overrides=relaxation_overrides)
+    elif relaxation_overrides is not None:
+        raise InvalidInputError("give either relaxation or relaxation_overrides, not both")
+    metab_relax = {m: relaxation.metabolite(m) for m in member_names}
+    defaulted = [m for m, r in metab_relax.items() if "default (no entry" in r.note]
+    if defaulted:
+        notes.append(f"default relaxation times used for {defaulted}")
+    k_molar, k_molal, water_consts = concentration_factors(
+        member_names,
+        water_amplitude=water_amplitude,
+        volume_fractions=volume_fractions,
+        te_s=te_s,
+        tr_s=tr_s,
+        metabolite_relaxation=metab_relax,
+        water_relaxation=relaxation.water,
+        protons=protons,
+        proton_normalised=proton_normalised,
+        water_proton_normalised=water_proton_normalised,
+        water_te_s=water_te_s,
+        water_tr_s=water_tr_s,
+        water_protons=water_protons,
+        water_content=water_content,
+        water_mm=water_mm,
+        fraction_atol=fraction_atol,
+    )
+    s_w = water_consts["water_signal"]
+    w_sd = 0.0 if water_amplitude_sd is None else float(water_amplitude_sd)
+    if w_sd < 0 or not math.isfinite(w_sd):
+        raise InvalidInputError(f"water amplitude SD must be >= 0, got {water_amplitude_sd!r}")
+    rel_w_var = (w_sd / float(water_amplitude)) ** 2
+
+    def scaled(k: Mapping[str, float] | np.ndarray) -> tuple[dict[str, float], dict[str, float]]:
+        weights = np.array([k[m] for m in member_names]) if isinstance(k, Mapping) else k
+        vals: dict[str, float] = {}
+        sds: dict[str, float] = {}
+        for name in out_names:
+            u = selector(name, weights)
+            vals[name] = float(u @ values)
+            var = float("nan") if cov is None else float(max(u @ cov @ u, 0.0))
+            sds[name] = math.sqrt(var + vals[name] ** 2 * rel_w_var)
+        return vals, sds
+
+    molar, molar_sd = scaled(k_molar)
+    molal, molal_sd = scaled(k_molal)
+    to_water, to_water_sd = scaled(per_molecule * float(water_protons) / s_w)
+    formula.update(
+        molal=_MOLAL_FORMULA,
+        molar=_MOLAR_FORMULA,
+        ratio=_ratio_formula(reference),
+        ratio_to_water="ratio_to_water_M = (S_M / N_M) / (S_W / N_W)",
+        references=(
+            "Gasparovic et al., Magn Reson Med 2006;55:1219-1226; Near et al., NMR Biomed "
+            "2021;34:e4257"
+        ),
+    )
+    constants = {
+        "reference": reference,
+        "field_t": relaxation.field_t,
+        "relaxation_file": relaxation.file,
+        "protons": None if protons is None else {m: protons.get(m) for m in member_names},
+        "water_amplitude_sd": w_sd,
+        "concentration_factor_molar": k_molar,
+        "concentration_factor_molal": k_molal,
+        **water_consts,
+    }
+    statement = (
+        "water-referenced concentrations (tissue water, CSF-corrected, relaxation-corrected; "
+        "Gasparovic et al. 2006) and ratios to " + reference
+    )
+    return Quantification(
+        names=tuple(out_names), combinations=combos_used, amplitudes=amps, amplitude_sd=amp_sd,
+        reference=reference, ratios=ratios, ratio_sd=ratio_sd, ratios_to_water=to_water,
+        ratios_to_water_sd=to_water_sd, conc_molar_mm=molar, conc_molar_sd_mm=molar_sd,
+        conc_molal_mmol_kg=molal, conc_molal_sd_mmol_kg=molal_sd, statement=statement,
+        formula=formula, constants=to_jsonable(constants), notes=tuple(notes),
+    )
+
+
+

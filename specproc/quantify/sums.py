@@ -1,0 +1,128 @@
+"""Combined sums (tNAA, tCr, tCho, Glx) and ratios of linear combinations of amplitudes, with their
+SDs from the amplitude covariance (first-order propagation).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from typing import Any
+
+import numpy as np
+
+from specproc.errors import InvalidInputError
+
+__all__ = ["DEFAULT_COMBINATIONS", "combine_linear", "ratio_linear"]
+
+#: Combined sums reported when at least one member was fitted (common practice naming).
+DEFAULT_COMBINATIONS: Mapping[str, tuple[str, ...]] = {
+    "tNAA": ("NAA", "NAAG"),
+    "tCr": ("Cr", "PCr"),
+    "tCho": ("GPC", "PCh", "PCho", "Cho"),  # as specproc.fit.crlb.COMBINED_SUMS
+    "Glx": ("Glu", "Gln"),
+}
+
+
+
+def _as_cov(covariance: Any, sd: Any, n: int) -> np.ndarray | None:
+    if covariance is not None:
+        cov = np.array(covariance, dtype=float)
+        if cov.shape != (n, n):
+            raise InvalidInputError(
+                f"covariance of shape {cov.shape} does not match {n} amplitudes"
+            )
+        if not np.all(np.isfinite(cov)):
+            return np.full((n, n), np.nan)
+        return 0.5 * (cov + cov.T)
+    if sd is not None:
+        s = np.array(sd, dtype=float).reshape(-1)
+        if s.shape != (n,):
+            raise InvalidInputError(f"{s.size} amplitude SDs do not match {n} amplitudes")
+        return np.diag(s**2)
+    return None
+
+
+def combine_linear(
+    values: Sequence[float] | np.ndarray,
+    covariance: Any = None,
+    *,
+    names: Sequence[str],
+    combinations: Mapping[str, Sequence[str]] = DEFAULT_COMBINATIONS,
+    weights: Sequence[float] | np.ndarray | None = None,
+) -> dict[str, tuple[float, float, tuple[str, ...]]]:
+    """Weighted sums of members with their SD: ``x = Σ w_i v_i``, ``var x = wᵀ Σ w``.
+
+    Parameters
+    ----------
+    values : (n,) array_like
+        Values (amplitudes) in the order of ``names``.
+    covariance : (n, n) array_like, optional
+        Their covariance (e.g. the Cramér-Rao covariance of the fit); ``None`` gives NaN SDs.
+    names : sequence of str
+        Member names (matched case-sensitively).
+    combinations : mapping
+        Name of each sum -> its member names; members not in ``names`` are skipped, a sum with no
+        member present is left out.
+    weights : (n,) array_like, optional
+        Per-member weights (default 1; concentration factors turn amplitude sums into
+        concentration sums).
+
+    Returns
+    -------
+    dict
+        Sum name -> (value, SD, members used).
+
+    Notes
+    -----
+    For two members, ``var(a + b) = var a + var b + 2 cov(a, b)``; fitted amplitudes of
+    overlapping signals (Cr/PCr, GPC/PCh, NAA/NAAG) are anti-correlated, which makes the SD of
+    their sum smaller than the root-sum-square of their SDs.
+    """
+    v = np.asarray(values, dtype=float).reshape(-1)
+    names = [str(n) for n in names]
+    if v.size != len(names):
+        raise InvalidInputError(f"{v.size} values but {len(names)} names")
+    w = np.ones_like(v) if weights is None else np.asarray(weights, dtype=float).reshape(-1)
+    cov = _as_cov(covariance, None, v.size)
+    out: dict[str, tuple[float, float, tuple[str, ...]]] = {}
+    for combo, members in combinations.items():
+        idx = [names.index(m) for m in members if m in names]
+        if not idx:
+            continue
+        u = np.zeros_like(v)
+        u[idx] = w[idx]
+        value = float(u @ v)
+        sd = float("nan") if cov is None else float(np.sqrt(max(u @ cov @ u, 0.0)))
+        out[combo] = (value, sd, tuple(names[i] for i in idx))
+    return out
+
+
+def ratio_linear(
+    numerator: np.ndarray, denominator: np.ndarray, values: np.ndarray, covariance: Any = None
+) -> tuple[float, float]:
+    """Ratio of two linear combinations ``r = (uᵀv)/(wᵀv)`` with its first-order SD.
+
+    ``var r = gᵀ Σ g`` with ``g = u/(wᵀv) - (uᵀv) w/(wᵀv)²`` (delta method), which keeps the
+    covariance between numerator and denominator (e.g. Cr in Cr/tCr).
+    """
+    u = np.asarray(numerator, dtype=float)
+    w = np.asarray(denominator, dtype=float)
+    v = np.asarray(values, dtype=float)
+    x = float(u @ v)
+    y = float(w @ v)
+    if y == 0 or not math.isfinite(y):
+        return float("nan"), float("nan")
+    r = x / y
+    cov = _as_cov(covariance, None, v.size)
+    if cov is None:
+        return r, float("nan")
+    g = u / y - x * w / y**2
+    return r, float(np.sqrt(max(g @ cov @ g, 0.0)))
+
+
+
+def _ratio_formula(reference: str) -> str:
+    return (
+        f"ratio_M = u_M / u_{reference}; u = A / N (signal areas) or u = A (per-proton "
+        "amplitudes); no relaxation correction"
+    )
