@@ -41,6 +41,8 @@ synthesis :func:`specproc.spins.simulate.synthesize_fid` (a plain sum of exponen
 * Raw transients (32, 2,048 points) with frequency and phase drift, a few corrupted
   transients, white noise set so that the coil-combined average has the drawn SNR; a third
   of the tissue scans have 4 coils with complex sensitivities.
+* Eddy currents in 40 % of the scans: a phase ``a exp(-t/τ)`` (|a| 0.3-1 rad, τ 20-80 ms)
+  shared by the scan and its water reference.
 * Water reference: the same voxel without suppression, three tissue compartments with their
   own water content, T1 and T2 (multi-exponential decay), 4 transients, the same coils.
 * Phantoms: 1.5-2 Hz lines, one T2 and T1 for all metabolites, no macromolecules, water at
@@ -254,6 +256,12 @@ class ScanSpec:
         A phantom (no tissue, no macromolecules, equal relaxation).
     lactate_mm : float or None
         Lactate of a lactate case, mM (None: the tissue draw).
+    narrow : bool
+        A scan of the CI preset (narrow lines).
+    seed_keys : (int, int)
+        Category key and index of the scan's random streams (see the module docstring).
+    extra : dict
+        Further settings (``temperature_c`` of a phantom).
     """
 
     scan_id: str
@@ -270,6 +278,7 @@ class ScanSpec:
     phantom: bool = False
     lactate_mm: float | None = None
     narrow: bool = False
+    seed_keys: tuple[int, int] = (0, 0)
     extra: dict[str, float] = field(default_factory=dict)
 
 
@@ -311,7 +320,7 @@ def plan_corpus(seed: int = DEFAULT_SEED, preset: str = "full") -> list[ScanSpec
 def _plan_ci(seed: int, i: int) -> ScanSpec:
     rng = _rng(seed, 99, i, 0)
     return ScanSpec(
-        scan_id=f"ci-{i + 1:03d}", category="3T-TE30", index=1000 + i, field_t=3.0,
+        scan_id=f"ci-{i + 1:03d}", category="3T-TE30", index=i, seed_keys=(99, i), field_t=3.0,
         te_s=0.030, te1_s=float(rng.choice(TE1_CHOICES_S[0.030])),
         tr_s=float(rng.uniform(2.0, 3.0)), snr=_log_uniform(rng, 60.0, 150.0),
         naa_fwhm_hz=float(rng.uniform(3.0, 5.0)), n_coils=4 if i % 4 == 0 else 1,
@@ -326,7 +335,7 @@ def _plan_one(seed: int, c_index: int, category: str, i: int) -> ScanSpec:
     coils = 4 if rng.uniform() < 1 / 3 else 1
     tr = float(rng.uniform(2.0, 3.0))
     base = {"scan_id": sid, "category": category, "index": i, "tr_s": tr, "n_coils": coils,
-            "timing": timing}
+            "timing": timing, "seed_keys": (c_index, i)}
     if category == "3T-TE30":
         snr = _log_uniform(rng, 20.0, 150.0)
         return ScanSpec(field_t=3.0, te_s=0.030, te1_s=float(rng.choice(TE1_CHOICES_S[0.030])),
@@ -511,8 +520,7 @@ class _Synth:
 
 def synthesise(spec: ScanSpec, cache: _LineCache, seed: int = DEFAULT_SEED) -> _Synth:
     """Draw one subject and protocol realisation and make its raw scan and water reference."""
-    c_index = list(CATEGORIES).index(spec.category) if spec.index < 1000 else 99
-    rng = _rng(seed, c_index, spec.index, 1)
+    rng = _rng(seed, *spec.seed_keys, 1)
     field_t = spec.field_t
     mhz = GAMMA_MHZ_PER_T * field_t
     nf = _nominal_field(field_t)
@@ -548,6 +556,11 @@ def synthesise(spec: ScanSpec, cache: _LineCache, seed: int = DEFAULT_SEED) -> _
     offset_hz = float(rng.normal(0.0, 0.04)) * mhz if not spec.phantom else 0.0
     gain = float(_log_uniform(rng, 1e-4, 1e-2))
     phase0 = float(rng.uniform(-np.pi, np.pi))
+    # eddy currents in 40 % of the scans: a decaying phase shared by scan and reference
+    eddy = None
+    if rng.uniform() < 0.4:
+        eddy = {"phase_rad": float(rng.uniform(0.3, 1.0)) * (1 if rng.uniform() < 0.5 else -1),
+                "tau_s": float(rng.uniform(0.02, 0.08))}
 
     metab = np.zeros(n, dtype=np.complex128)
     for name, c in conc.items():
@@ -580,6 +593,8 @@ def synthesise(spec: ScanSpec, cache: _LineCache, seed: int = DEFAULT_SEED) -> _
     scan_clean = (metab + residual) * g
     ref_clean = (water_clean["fid"] + metab) * g
     common = gain * np.exp(1j * phase0) * np.exp(-2j * np.pi * offset_hz * t)
+    if eddy is not None:
+        common = common * np.exp(1j * eddy["phase_rad"] * np.exp(-t / eddy["tau_s"]))
     scan_clean = scan_clean * common
     ref_clean = ref_clean * common
 
@@ -622,7 +637,7 @@ def synthesise(spec: ScanSpec, cache: _LineCache, seed: int = DEFAULT_SEED) -> _
         "line_shape": {**shape, "scale_hz": scale_hz}, "b0_offset_hz": offset_hz,
         "macromolecules": mm_record, "residual_water_over_naa": residual_ratio,
         "water_model": water_clean["record"], "corrupted_transients": bad,
-        "drift_total_hz": drift_total, "noise_sd_per_transient": sigma,
+        "drift_total_hz": drift_total, "eddy_current": eddy, "noise_sd_per_transient": sigma,
     }
     return _Synth(scan, water, header, water_header, dwell, truth)
 
