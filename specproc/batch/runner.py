@@ -472,7 +472,7 @@ def run_batch(
     finally:
         runner.close()
         stop()
-    counts = write_cohort(entries, out, title=title)
+    counts = write_cohort(entries, out, title=title, qc_config=cfg.get("qc"))
     summary.n_failed = counts["failed"]
     summary.n_flagged = counts["flagged"]
     summary.failures = counts["failures"]

@@ -167,10 +167,13 @@ def _metabolite_rows(table: list[Mapping[str, Any]], quant: Mapping[str, Any]
         values = quant.get(key)
         return _num(values.get(name)) if isinstance(values, Mapping) else None
 
+    from specproc.report.tables import CONCENTRATION_KINDS
+
     rows = []
     for r in table:
         name = str(r.get("metabolite"))
         ratio = pick(name, "ratios")
+        molar = r.get("kind") in CONCENTRATION_KINDS  # one rule: no mM for macromolecules
         rows.append({
             "metabolite": name,
             "kind": r.get("kind"),
@@ -180,10 +183,10 @@ def _metabolite_rows(table: list[Mapping[str, Any]], quant: Mapping[str, Any]
             "ratio_tcr": ratio if ratio is not None else _num(r.get("ratio_tcr")),
             "ratio_tcr_sd": pick(name, "ratio_sd"),
             "ratio_water": pick(name, "ratios_to_water"),
-            "conc_molar_mm": pick(name, "conc_molar_mm"),
-            "conc_molar_sd_mm": pick(name, "conc_molar_sd_mm"),
-            "conc_molal_mmol_kg": pick(name, "conc_molal_mmol_kg"),
-            "conc_molal_sd_mmol_kg": pick(name, "conc_molal_sd_mmol_kg"),
+            "conc_molar_mm": pick(name, "conc_molar_mm") if molar else None,
+            "conc_molar_sd_mm": pick(name, "conc_molar_sd_mm") if molar else None,
+            "conc_molal_mmol_kg": pick(name, "conc_molal_mmol_kg") if molar else None,
+            "conc_molal_sd_mmol_kg": pick(name, "conc_molal_sd_mmol_kg") if molar else None,
             "fit_flag": r.get("flag") or "",
         })
     return rows
