@@ -129,7 +129,7 @@ def _bad_files(tmp_path):
     (tmp_path / "truncated.nii.gz").write_bytes(gzip.compress(raw)[:200])
     bad["truncated gz"] = (tmp_path / "truncated.nii.gz", "gzip")
     (tmp_path / "corrupt.nii").write_bytes(raw[:4] + b"junkjunk" + raw[12:])  # NIfTI-2 magic
-    bad["corrupt"] = (tmp_path / "corrupt.nii", "unrecognised format")
+    bad["corrupt"] = (tmp_path / "corrupt.nii", "not a recognised spectroscopy file")
     json_at = raw.index(b'{"Spectrometer')
     (tmp_path / "badjson.nii").write_bytes(raw[:json_at] + b"{{" + raw[json_at + 2:])
     bad["corrupt json"] = (tmp_path / "badjson.nii", "not valid JSON")
@@ -160,7 +160,14 @@ def _bad_files(tmp_path):
     bad["real only"] = (write_jcampdx(tmp_path / "real.jdx", fid, real_only=True),
                         "only real data")
     (tmp_path / "noise.bin").write_bytes(bytes(range(256)) * 4)
-    bad["random bytes"] = (tmp_path / "noise.bin", "unrecognised format")
+    bad["random bytes"] = (tmp_path / "noise.bin", "not a recognised spectroscopy file")
+    # a BIDS sidecar or a README given as a scan is not read as FID text
+    (tmp_path / "sub-01_svs.json").write_text('{"EchoTime": 0.03, "RepetitionTime": 2.0}\n')
+    bad["json sidecar"] = (tmp_path / "sub-01_svs.json",
+                           "not a recognised spectroscopy file (NIfTI-MRS, DICOM MRS, JCAMP-DX, "
+                           "specproc text or npz)")
+    (tmp_path / "README.md").write_text("# Study\n\nScans of the pilot, 2 sessions.\n")
+    bad["readme"] = (tmp_path / "README.md", "not a recognised spectroscopy file")
     return bad
 
 

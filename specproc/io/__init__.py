@@ -89,7 +89,8 @@ def detect_format(path: str | os.PathLike[str]) -> str:
     Raises
     ------
     InvalidInputError
-        If the file is missing, empty, or gzip data that are not NIfTI.
+        If the file is missing, empty, gzip data that are not NIfTI, or none of the formats
+        (:data:`UNRECOGNISED`: e.g. a JSON sidecar or a README given as a scan).
     """
     p = require_file(path)
     with open(p, "rb") as fh:
@@ -113,7 +114,48 @@ def detect_format(path: str | os.PathLike[str]) -> str:
         return "npz"
     if is_jcampdx_text(head):
         return "jcamp-dx"
-    return "text"
+    if _looks_like_fid_text(head):
+        return "text"
+    raise InvalidInputError(f"{UNRECOGNISED}; the first bytes are {_first_bytes(head)}", p)
+
+
+#: The one-line message of a file no reader recognises.
+UNRECOGNISED = ("not a recognised spectroscopy file (NIfTI-MRS, DICOM MRS, JCAMP-DX, specproc "
+                "text or npz)")
+
+
+def _first_bytes(head: bytes) -> str:
+    text = head[:24].decode("utf-8", errors="replace").replace("\n", " ").replace("\r", " ")
+    return repr(text.strip() or head[:8])
+
+
+def _looks_like_fid_text(head: bytes) -> bool:
+    """Whether the start of a file is specproc's text layout: ``#`` lines, then number columns.
+
+    The header line or the first data line decides; a JSON sidecar, a README or a table with
+    words in it is not a FID.
+    """
+    try:
+        text = head.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        if exc.start < len(head) - 4:  # not text (a window may cut a character at its end)
+            return False
+        text = head[:exc.start].decode("utf-8")
+    for line in text.splitlines():
+        stripped = line.strip()
+        if not stripped:
+            continue
+        if stripped.startswith("#"):
+            if stripped.lstrip("#").split()[:1] == ["specproc-text"]:
+                return True
+            continue
+        cells = stripped.replace(",", " ").split()
+        try:
+            [float(c) for c in cells]
+        except ValueError:
+            return False
+        return len(cells) >= 2
+    return False
 
 
 def load(path: str | os.PathLike[str], **options: Any) -> Scan:
