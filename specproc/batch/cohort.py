@@ -22,7 +22,6 @@ page are kept in memory: three floats per scan and member, and one running mean 
 
 from __future__ import annotations
 
-import math
 from collections.abc import Iterator, Mapping, Sequence
 from pathlib import Path
 from typing import Any
