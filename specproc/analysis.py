@@ -52,8 +52,10 @@ from specproc.errors import InvalidInputError
 __all__ = [
     "KEY_RATIOS",
     "OUTPUT_FILES",
+    "WATER_DOMINANCE_MIN",
     "ScanResult",
     "analyse_scan",
+    "input_notes",
     "resolve_config",
     "write_scan_outputs",
 ]
@@ -339,6 +341,95 @@ class ScanResult:
                 f"<table>{cells}</table></div>")
 
 
+# ============================================================================ input checks
+#: Relative difference of field strength above which a basis does not match its scan (a 3 T
+#: basis on a 2.89 T scan is fine; common practice: within a few per cent).
+_FIELD_TOLERANCE = 0.03
+#: Difference of echo time above which a basis does not match its scan, s.
+_TE_TOLERANCE_S = 0.001
+#: In an unsuppressed water reference the water peak is hundreds to thousands of times the
+#: tallest metabolite peak (common practice, from memory); below this ratio it is not a water
+#: reference (a suppressed scan, or a phantom of low water content).
+WATER_DOMINANCE_MIN = 20.0
+
+
+def _ms_text(value_s: float) -> str:
+    return f"{value_s * 1e3:g} ms"
+
+
+def input_notes(scan: Any, water: Any, basis: Any, water_processed: Any = None) -> list[str]:
+    """Warnings about the inputs of one analysis, as sentences (empty when all is well).
+
+    * Header values replaced by an option or a manifest column (``HeaderOverrides`` in the
+      header, written by :func:`specproc.batch.task.apply_overrides`).
+    * A basis whose sequence, field strength or TE differs from the scan's header.
+    * A water reference that is the metabolite scan itself, or whose spectrum is not
+      dominated by water (:data:`WATER_DOMINANCE_MIN`).
+
+    Parameters
+    ----------
+    scan, water : Scan
+        The inputs as given (``water`` may be None).
+    basis : BasisSet
+        The basis the scan is fitted with.
+    water_processed : Scan, optional
+        The preprocessed water reference (one FID), used for the dominance check.
+    """
+    from specproc.preprocess.transform import ppm_axis, to_spectrum
+
+    notes: list[str] = []
+    for key, change in dict(scan.header.get("HeaderOverrides") or {}).items():
+        before, after = change.get("header"), change.get("given")
+        if key.endswith("_s") and isinstance(before, int | float) and isinstance(after,
+                                                                                  int | float):
+            before, after = _ms_text(float(before)), _ms_text(float(after))
+        name = {"te_s": "TE", "tr_s": "TR", "tm_s": "TM", "sequence": "sequence"}.get(key, key)
+        if before is not None and before != after:
+            notes.append(f"The {name} given ({after}) replaces the file header's ({before}); the "
+                         "basis and the relaxation corrections use the given value.")
+    seq_scan = (scan.sequence or "").lower()
+    seq_basis = str(getattr(basis, "sequence", "") or "").lower()
+    if seq_scan and seq_basis and seq_basis != "unknown" and seq_scan != seq_basis:
+        notes.append(f"The basis was made for the {seq_basis} sequence but the scan header "
+                     f"says {seq_scan}; the fit may be biased.")
+    mhz_basis = float(getattr(basis, "spectrometer_mhz", 0.0) or 0.0)
+    if mhz_basis > 0 and scan.spectrometer_mhz > 0 and abs(
+            mhz_basis / scan.spectrometer_mhz - 1.0) > _FIELD_TOLERANCE:
+        notes.append(f"The basis was made for {mhz_basis:.1f} MHz but the scan was acquired at "
+                     f"{scan.spectrometer_mhz:.1f} MHz; the fit may be biased.")
+    te_basis = dict(getattr(basis, "timings_s", {}) or {}).get("te_s")
+    if te_basis is not None and scan.te_s is not None and abs(
+            float(te_basis) - scan.te_s) > _TE_TOLERANCE_S:
+        notes.append(f"The basis was made for TE {_ms_text(float(te_basis))} but the scan "
+                     f"header says TE {_ms_text(scan.te_s)}; the fit may be biased.")
+    if water is None:
+        return notes
+    same_file = bool(scan.source) and Path(str(scan.source)).resolve() == Path(
+        str(water.source or "")).resolve()
+    same_data = (np.shape(scan.data) == np.shape(water.data)
+                 and np.array_equal(np.asarray(scan.data), np.asarray(water.data)))
+    if same_file or same_data:
+        notes.append("The water reference is the metabolite scan itself; give the "
+                     "unsuppressed water acquisition (concentrations are not meaningful).")
+        return notes
+    ref = water_processed if water_processed is not None else water
+    fid = np.asarray(ref.data)
+    fid = fid.reshape(-1, fid.shape[-1]).mean(axis=0) if fid.ndim > 1 else fid
+    ppm = ppm_axis(fid.size, dwell_s=ref.dwell_s, spectrometer_mhz=ref.spectrometer_mhz,
+                   centre_ppm=ref.reference_ppm)
+    magnitude = np.abs(to_spectrum(fid))
+    in_water = (ppm > 4.65 - 0.5) & (ppm < 4.65 + 0.5)
+    in_metab = (ppm > 0.5) & (ppm < 4.0)
+    if in_water.any() and in_metab.any():
+        ratio = float(magnitude[in_water].max()) / max(float(magnitude[in_metab].max()), 1e-300)
+        if ratio < WATER_DOMINANCE_MIN:
+            notes.append(f"The water reference is not dominated by water (its water peak is "
+                         f"only {ratio:.3g} times its tallest peak between 0.5 and 4 ppm; "
+                         "usually hundreds of times): is it a suppressed scan, or a phantom "
+                         "of low water content? Water-referenced values are not meaningful.")
+    return notes
+
+
 # ============================================================================ analysis
 def analyse_scan(
     scan: Any,
@@ -424,6 +515,7 @@ def analyse_scan(
     notes.extend(pre.notes)
     if used_basis is None:
         used_basis = used_protocol.simulate()
+    notes.extend(input_notes(scan, water, used_basis, pre.water))
     fit = fit_spectrum(pre.scan, used_basis, config=cfg)
 
     # ---- quantification

@@ -201,11 +201,13 @@ def test_batch_good_scans_have_results_broken_ones_reasons(reference) -> None:
                                                                rel=0.05)
         assert (out / "scans" / f"{sub}_svs" / "report.html").is_file()
     # water reference + tissue fractions give concentrations for sub-01 only
-    assert all(r["conc_molar_mm"] != "n/a" for r in rows if r["scan_id"] == "sub-01_svs")
+    assert all(r["conc_molar_mm"] != "n/a" for r in rows if r["scan_id"] == "sub-01_svs"
+               and r["kind"] != "macromolecule")
     assert all(r["conc_molar_mm"] == "n/a" for r in rows if r["scan_id"] == "sub-02_svs")
     page = (out / "cohort.html").read_text("utf-8")
-    assert "not a medical device" in page and "data:image/png;base64," in page
+    assert "not a medical device" in page and "<svg" in page  # plots are inline SVG
     assert "sub-07_svs" in page and "<script" not in page
+    assert 'href="scans/sub-01_svs/report.html"' in page
 
 
 def test_strict_exit_code_and_resume_skips_everything(reference, cohort: Path,

@@ -148,7 +148,11 @@ def _load_basis(path: str) -> Any:
 
 
 def apply_overrides(scan: Any, overrides: Mapping[str, Any]) -> Any:
-    """The Scan with manifest overrides (``te_s``, ``tm_s``, ``tr_s``, ``sequence``) applied."""
+    """The Scan with manifest or option overrides (``te_s``, ``tm_s``, ``tr_s``, ``sequence``).
+
+    A value that differs from the file's is recorded in the header under ``HeaderOverrides``
+    (``{key: {"header": old, "given": new}}``), so that the analysis can say so.
+    """
     if not overrides:
         return scan
     from specproc.io import normalise_sequence_name
@@ -156,6 +160,10 @@ def apply_overrides(scan: Any, overrides: Mapping[str, Any]) -> Any:
     changes = {k: overrides[k] for k in ("te_s", "tm_s", "tr_s") if k in overrides}
     if "sequence" in overrides:
         changes["sequence"] = normalise_sequence_name(str(overrides["sequence"]))
+    replaced = {k: {"header": getattr(scan, k), "given": v} for k, v in changes.items()
+                if getattr(scan, k) is not None and getattr(scan, k) != v}
+    if replaced:
+        changes["header"] = {**dict(scan.header), "HeaderOverrides": replaced}
     return scan.replace(**changes)
 
 

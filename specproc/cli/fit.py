@@ -108,7 +108,7 @@ def fit_command(scan_file: Path, water_file: Path | None, gm: float | None, wm: 
     from specproc.batch.task import apply_overrides
     from specproc.io import load
     from specproc.protocol import resolve_protocol
-    from specproc.report.messages import fit_flag_sentence
+    from specproc.report.messages import qc_flag_sentence
 
     if out_dir.exists() and not out_dir.is_dir():
         raise InvalidInputError("the output must be a folder", out_dir)
@@ -140,10 +140,9 @@ def fit_command(scan_file: Path, water_file: Path | None, gm: float | None, wm: 
     files = write_scan_outputs(result, out_dir)
     for note in result.notes:
         click.echo(f"specproc: note: {note}", err=True)
-    for flag in result.fit.flags:
-        click.echo(f"specproc: warning: {fit_flag_sentence(flag, result.fit)}", err=True)
     for flag in result.qc.flags:
-        click.echo(f"specproc: QC flag: {flag.message}", err=True)
+        click.echo(f"specproc: QC flag: {qc_flag_sentence(flag.name, flag.value, flag.threshold)}",
+                   err=True)
     click.echo(result.fit.to_text().rstrip())
     if result.protocol is not None and result.protocol.timing_text():
         click.echo(f"basis timing: {result.protocol.timing_text()}")

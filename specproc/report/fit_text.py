@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from specproc.report.messages import crlb_text, fit_flag_sentence, fit_status_sentence
+from specproc.report.messages import crlb_text, fit_sentences, fit_status_sentence
 from specproc.report.tables import sig
 
 __all__ = ["result_to_text"]
@@ -38,6 +38,5 @@ def result_to_text(result: Any) -> str:
         f"degrees of freedom (reduced {sig(result.reduced_chi_square)}); "
         f"{sig(result.elapsed_s, 2)} s."
     )
-    for flag in result.flags:
-        out.append("Note: " + fit_flag_sentence(flag, result))
+    out += ["Note: " + sentence for sentence in fit_sentences(result)]
     return "\n".join(out) + "\n"

@@ -33,6 +33,7 @@ __all__ = [
     "CRLB_UNDEFINED",
     "crlb_text",
     "fit_flag_sentence",
+    "fit_sentences",
     "fit_status_sentence",
     "flag_sentence",
     "member_label",
@@ -187,6 +188,15 @@ def fit_flag_sentence(flag: str, fit: Any = None) -> str:
         order = "zero" if what == "phase0_rad" else "first"
         return f"The {order}-order phase hit its limit."
     return f"The fit parameter {what} hit its limit."
+
+
+def fit_sentences(fit: Any) -> list[str]:
+    """Sentences for all flags of a fit, the members fitted at zero named in one sentence."""
+    zero = [f.split(":", 1)[1] for f in fit.flags if f.startswith("at_zero_bound:")]
+    out = [fit_flag_sentence(f, fit) for f in fit.flags if not f.startswith("at_zero_bound:")]
+    if zero:
+        out.append("Fitted at zero (not detected in this spectrum): " + ", ".join(zero) + ".")
+    return out
 
 
 def qc_flag_sentence(name: str, value: float | None = None, limit: float | None = None) -> str:
