@@ -50,7 +50,7 @@ from specproc.preprocess.reference import (
     reference_scan,
     water_shift_ppm,
 )
-from specproc.preprocess.water import remove_water_scan
+from specproc.preprocess.water import HLSVD_SOLVERS, remove_water_scan
 
 __all__ = ["PreprocessResult", "TransientReport", "run_pipeline"]
 
@@ -213,6 +213,7 @@ _CHOICES: tuple[tuple[str, str, tuple[str, ...]], ...] = (
     ("referencing", "apply_to", ("fid", "axis")),
     ("phasing", "method", ("peak", "acme", "manual")),
     ("apodization", "kind", ("exponential", "gaussian")),
+    ("water_removal", "solver", HLSVD_SOLVERS),
 )
 
 
@@ -385,7 +386,8 @@ def run_pipeline(
     if removal["enabled"]:
         scan = remove_water_scan(scan, band_ppm=_window(removal["band_ppm"]),
                                  model_order=removal["model_order"],
-                                 fit_points=removal["fit_points"])
+                                 fit_points=removal["fit_points"],
+                                 solver=removal["solver"])
 
     ref_cfg = cfg["referencing"]
     if ref_cfg["enabled"]:
