@@ -1,15 +1,15 @@
 """Physical constants and the nucleus table.
 
-Gyromagnetic ratios come from scipy.constants (CODATA) where CODATA has them; the others are
-the usual tabulated values (from memory) and are only used to report the field strength of
-files of nuclei that specproc does not process yet.
+The proton gyromagnetic ratio is the CODATA 2022 value as scipy.constants gives it, written out
+so that reading a file does not import scipy (about 0.2 s of start-up);
+``tests/test_constants.py`` checks it against ``scipy.constants.physical_constants``. The other
+ratios are the usual tabulated values (from memory) and are only used to report the field
+strength of files of nuclei that specproc does not process yet.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
-
-from scipy import constants as _sc
 
 from specproc.errors import InvalidInputError
 
@@ -24,8 +24,9 @@ __all__ = [
     "larmor_mhz",
 ]
 
-#: Proton gyromagnetic ratio over 2π in MHz/T (CODATA via scipy.constants), about 42.577.
-PROTON_GAMMA_MHZ_PER_T: float = _sc.physical_constants["proton gyromag. ratio in MHz/T"][0]
+#: Proton gyromagnetic ratio over 2π in MHz/T: CODATA 2022, scipy.constants.physical_constants
+#: ["proton gyromag. ratio in MHz/T"] (checked against it in tests/test_constants.py).
+PROTON_GAMMA_MHZ_PER_T: float = 42.577478461
 
 #: Molar concentration of pure water in mM (55.51 mol/L at 37 °C; common practice).
 WATER_MOLAR_MM: float = 55_510.0

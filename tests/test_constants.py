@@ -23,6 +23,9 @@ def test_proton_gyromagnetic_ratio_is_codata():
     gamma_rad = constants.physical_constants["proton gyromag. ratio"][0]
     assert PROTON_GAMMA_MHZ_PER_T == pytest.approx(gamma_rad / (2 * math.pi) / 1e6, rel=1e-9)
     assert PROTON_GAMMA_MHZ_PER_T == pytest.approx(42.577, abs=5e-4)  # CODATA 2018: 42.577 478
+    # the written-out value is scipy's own, to its last digit
+    codata_mhz = constants.physical_constants["proton gyromag. ratio in MHz/T"]
+    assert PROTON_GAMMA_MHZ_PER_T == pytest.approx(codata_mhz[0], abs=codata_mhz[2])
 
 
 def test_larmor_frequencies():

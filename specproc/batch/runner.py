@@ -227,10 +227,18 @@ class _Dask(_Executor):
 
 @contextlib.contextmanager
 def _single_threaded_children() -> Iterator[None]:
-    """Set the thread-count variables (if unset) while worker processes are started."""
+    """Set the thread-count variables (if unset) while worker processes are started.
+
+    They hold each worker's libraries at the per-scan BLAS limit from start-up (see
+    :mod:`specproc._threads`); the context around each scan applies it again.
+    """
+    from specproc._threads import blas_thread_limit
+
+    limit = blas_thread_limit()  # the per-scan setting; None: leave the libraries alone
     saved = {k: os.environ.get(k) for k in _THREAD_VARS}
     for k in _THREAD_VARS:
-        os.environ.setdefault(k, "1")
+        if limit is not None:
+            os.environ.setdefault(k, str(limit))
     try:
         yield
     finally:

@@ -28,6 +28,7 @@ from pathlib import Path
 from typing import Any
 
 from specproc._atomic import write_text
+from specproc._threads import blas_threads
 from specproc.errors import InvalidInputError
 
 __all__ = [
@@ -251,6 +252,7 @@ def process_one(task: Mapping[str, Any]) -> dict[str, Any]:
     return summarise_fit_json(document)
 
 
+@blas_threads()
 def run_task(task: Mapping[str, Any]) -> dict[str, Any]:
     """Process one scan and record the outcome in its folder; never raises for a bad scan.
 

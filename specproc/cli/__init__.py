@@ -4,17 +4,22 @@ Each sub-command lives in its own module of this package and is registered below
 :class:`~specproc.errors.SpecprocError` family become one line
 ``specproc: error: FILE: what is wrong`` on stderr and exit status 2 (a traceback only with
 ``--debug``).
+
+Start-up is kept short: this package and the command modules import only click at module level,
+and each command imports what it computes with when it runs, so ``specproc --help`` loads
+neither numpy nor scipy (``tests/test_cli_imports.py``).
 """
 
 from __future__ import annotations
 
 import importlib
+import os
 import sys
 from typing import Any
 
 import click
 
-from specproc import __version__
+from specproc._threads import BLAS_THREADS_ENV
 from specproc.errors import SpecprocError
 
 __all__ = ["main"]
@@ -49,14 +54,29 @@ class _Group(click.Group):
             ctx.exit(2)
 
 
+def _show_version(ctx: click.Context, _param: click.Parameter, value: bool) -> None:
+    if not value or ctx.resilient_parsing:
+        return
+    from specproc import __version__  # importlib.metadata only when asked
+
+    click.echo(f"specproc, version {__version__}")
+    ctx.exit()
+
+
 @click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})
-@click.version_option(__version__, prog_name="specproc")
+@click.option("--version", is_flag=True, expose_value=False, is_eager=True,
+              callback=_show_version, help="Show the version and exit.")
 @click.option("--debug", is_flag=True, help="Show full tracebacks instead of one-line errors.")
-def main(debug: bool) -> None:
+@click.option("--blas-threads", type=click.IntRange(min=0), default=None, metavar="N",
+              help="BLAS threads per scan (default 1, or $SPECPROC_BLAS_THREADS; 0: the "
+                   "libraries' own setting). Parallel work comes from worker processes.")
+def main(debug: bool, blas_threads: int | None) -> None:
     """specproc: single-voxel proton MRS, from raw FIDs to concentrations with CRLBs.
 
     Research use only; not a medical device. Interpretation belongs to qualified professionals.
     """
+    if blas_threads is not None:  # inherited by batch worker processes
+        os.environ[BLAS_THREADS_ENV] = str(blas_threads)
 
 
 def _register() -> None:

@@ -5,11 +5,11 @@ Times are given in milliseconds at the command line and converted to seconds at 
 
 from __future__ import annotations
 
+import math
 from pathlib import Path
 from typing import TYPE_CHECKING
 
 import click
-import numpy as np
 
 from specproc.errors import InvalidInputError
 
@@ -31,7 +31,7 @@ def _split_names(text: str | None) -> list[str] | None:
 def _ms(value: float | None, option: str) -> float | None:
     if value is None:
         return None
-    if not np.isfinite(value) or value < 0:
+    if not math.isfinite(value) or value < 0:
         raise InvalidInputError(f"{option} must be a non-negative time in ms, got {value:g}")
     return value * 1e-3
 
@@ -85,7 +85,7 @@ def simulate_command(
     """Simulate a basis set and write it to one file."""
     from specproc.basis import simulate_basis
 
-    if not np.isfinite(bandwidth_hz) or bandwidth_hz <= 0:
+    if not math.isfinite(bandwidth_hz) or bandwidth_hz <= 0:
         raise InvalidInputError(f"--bandwidth must be positive, got {bandwidth_hz:g} Hz")
     delays = None
     if delays_ms is not None:
@@ -114,6 +114,7 @@ def simulate_command(
 
 def _main_peaks(result: BasisSet, index: int, count: int = 3) -> list[float]:
     """Positions (ppm) of the strongest peaks of a member's magnitude spectrum (2 Hz broadened)."""
+    import numpy as np
     from scipy.signal import find_peaks
 
     spec = np.abs(result.spectrum(lb_hz=2.0)[index])
@@ -172,6 +173,7 @@ def plot_command(file: Path, output: Path, ppm_range: tuple[float, float], lb_hz
     Each trace is scaled to its own maximum within the shown range.
     """
     import matplotlib
+    import numpy as np
 
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt

@@ -15,13 +15,14 @@ from __future__ import annotations
 import hashlib
 import json
 from collections.abc import Mapping
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import click
 
-from specproc.cli._common import dumps
-from specproc.data import Scan
 from specproc.errors import SpecprocError
+
+if TYPE_CHECKING:
+    from specproc.data import Scan
 
 __all__ = ["COMMANDS", "describe_scan", "format_description", "header_digest"]
 
@@ -133,6 +134,7 @@ def info_command(
     spectrometer_mhz: float | None,
 ) -> None:
     """Show what each data FILE holds: format, nucleus, frequency, field, points, dims, TE, TR."""
+    from specproc import _json
     from specproc.io import load
 
     options: dict[str, Any] = {}
@@ -154,7 +156,7 @@ def info_command(
             continue
         info = describe_scan(scan)
         if as_json:
-            click.echo(dumps(info, ensure_ascii=False, allow_nan=False))
+            click.echo(_json.dumps(info, ensure_ascii=False, allow_nan=False))
         else:
             if shown:
                 click.echo("")

@@ -17,10 +17,10 @@ from typing import Any
 
 import numpy as np
 
+from specproc._threads import blas_threads
 from specproc.basis import BasisSet
 from specproc.data import Scan
 from specproc.errors import InvalidInputError
-from specproc.fit._threads import single_blas_thread
 from specproc.fit.baseline import bspline_design, penalty_scale, second_difference
 from specproc.fit.crlb import combine_sums, covariance_from_fisher, estimate_noise_sd
 from specproc.fit.model import (
@@ -132,7 +132,7 @@ def fit_spectrum(scan: Scan, basis: BasisSet, *, config: Any = None) -> FitResul
     >>> np.round(result.amplitudes, 4).tolist()
     [2.0, 1.0]
     """
-    with single_blas_thread():
+    with blas_threads():
         return _fit(scan, basis, config)
 
 

@@ -29,6 +29,7 @@ from typing import Any
 
 import numpy as np
 
+from specproc._threads import blas_threads
 from specproc.config import merge_config
 from specproc.data import Scan
 from specproc.errors import InvalidInputError
@@ -305,6 +306,7 @@ def _transient_report(scan: Scan, n_transients: int) -> TransientReport:
     return TransientReport(shifts_hz=shifts, phases_deg=phases, scores=scores, kept=kept)
 
 
+@blas_threads()
 def run_pipeline(
     scan: Scan, *, water: Scan | None = None, config: dict[str, Any] | None = None
 ) -> PreprocessResult:
