@@ -17,7 +17,8 @@ share it. :func:`write_scan_outputs` writes a result's folder::
     report.html   self-contained report
 
 Every file is rendered before the first is written, and each is written atomically
-(:mod:`specproc._atomic`).
+(:mod:`specproc._atomic`). Both functions run with one BLAS thread by default
+(:mod:`specproc._threads`).
 
 Top-level keys of ``fit.json`` (``format = "specproc-scan-result"``, ``format_version = 1``):
 ``caution``, ``versions``, ``inputs`` (paths, SHA-256, acquisition summary, tissue fractions),
@@ -47,6 +48,7 @@ from typing import Any
 
 import numpy as np
 
+from specproc._threads import blas_threads
 from specproc.errors import InvalidInputError
 
 __all__ = [
@@ -431,6 +433,7 @@ def input_notes(scan: Any, water: Any, basis: Any, water_processed: Any = None) 
 
 
 # ============================================================================ analysis
+@blas_threads()
 def analyse_scan(
     scan: Any,
     water: Any = None,
@@ -582,6 +585,7 @@ def analyse_scan(
 
 
 # ============================================================================ outputs
+@blas_threads()
 def write_scan_outputs(result: ScanResult, outdir: str | os.PathLike[str]) -> dict[str, Path]:
     """Write the folder of one analysed scan (the only writer of a scan folder).
 
