@@ -64,7 +64,8 @@ With one phantom the ``[[phantom]]`` table may be left out and ``concentrations_
 match its file name.
 
 Concentrations: with ``reference = "water"``,
-``[M] = (A_M / R_M) / ((S_W / 2) / R_W) · water_mm`` where ``A_M`` is the fitted amplitude per
+``[M] = (A_M / R_M) / ((S_W / 2) / R_W) · water_mm``
+(:func:`specproc.quantify.solution_concentration_mm`) where ``A_M`` is the fitted amplitude per
 molecule, ``S_W`` the water signal at t = 0 (:func:`specproc.quantify.water_amplitude`; 2
 protons), ``R = exp(-TE/T2)·(1 - exp(-TR/T1))`` when relaxation times are given (else 1); with
 a reference compound X of nominal concentration ``[X]``: ``[M] = [X] · A_M / A_X``.
@@ -94,6 +95,7 @@ from typing import Any
 
 import numpy as np
 
+from specproc.constants import WATER_MOLAR_MM
 from specproc.data import Scan
 from specproc.errors import InvalidInputError
 
@@ -246,7 +248,7 @@ class NominalSpec:
 
     phantoms: tuple[PhantomContents, ...]
     reference: str = "water"
-    water_mm: float = 55_510.0
+    water_mm: float = WATER_MOLAR_MM
     relaxation: Mapping[str, Mapping[str, float]] = field(default_factory=dict)
     thermometry: Thermometry = field(default_factory=Thermometry)
     source: str = ""
@@ -372,7 +374,7 @@ def load_nominal(path: str | os.PathLike[str]) -> NominalSpec:
         raise InvalidInputError("coefficient_ppm_per_c must not be zero", where)
     return NominalSpec(
         phantoms=phantoms, reference=reference,
-        water_mm=_positive_number(raw.get("water_mm", 55_510.0), "water_mm", where),
+        water_mm=_positive_number(raw.get("water_mm", WATER_MOLAR_MM), "water_mm", where),
         relaxation=relaxation, thermometry=thermometry, source=str(where),
     )
 
@@ -496,7 +498,7 @@ def analyse_phantom(
     te, tr = pre.scan.te_s, pre.scan.tr_s
     relax = {k.lower(): v for k, v in nominal.relaxation.items()}
     if nominal.reference.lower() == "water":
-        from specproc.quantify import water_amplitude
+        from specproc.quantify import solution_concentration_mm, water_amplitude
 
         s_w, _, _ = water_amplitude(pre.water)
         r_w = _relax(relax.get("water"), pre.water.te_s or te, pre.water.tr_s or tr)
@@ -504,7 +506,9 @@ def analyse_phantom(
             if name.lower() not in amp:
                 raise InvalidInputError(f"compound {name} is not a basis member", path)
             r_m = _relax(relax.get(name.lower()), te, tr)
-            measured[name] = (amp[name.lower()] / r_m) / ((s_w / 2.0) / r_w) * nominal.water_mm
+            measured[name] = solution_concentration_mm(
+                amp[name.lower()], s_w, metabolite_relaxation=r_m, water_relaxation=r_w,
+                water_mm=nominal.water_mm)
         if not relax:
             notes.append("no relaxation times given: concentrations not relaxation-corrected")
     else:

@@ -165,17 +165,24 @@ def basis_for(scan):
                     spectrometer_mhz=MHZ, centre_ppm=CENTRE)
 
 
-def test_fit_and_quantification_sum_the_same_members():
-    # results.tsv takes the sums from specproc.quantify and the QC CRLB flags from the fit's
-    # sums: both must mean the same members (common practice naming: tNAA, tCr, tCho, Glx).
-    from specproc.fit.crlb import COMBINED_SUMS
-    from specproc.quantify import DEFAULT_COMBINATIONS
+def test_fit_and_quantification_sum_the_same_members_whatever_the_case():
+    # issue 12: with a member spelled "pcr" the fit reported tCr 8.0 and the quantification
+    # 5.0. Both now take the members of each sum from specproc.sums.sum_members.
+    from specproc.quantify import combine_linear
 
-    fit_members = {k: {a for alias in v for a in alias} for k, v in COMBINED_SUMS.items()}
-    quant_members = {k: set(v) for k, v in DEFAULT_COMBINATIONS.items()}
-    assert fit_members == quant_members
+    names = ("Cr", "pcr", "NAA")
+    amps = np.array([5.0, 3.0, 10.0])
+    cov = np.eye(3) * 0.01
+    fit_sums = combine_sums(names, amps, cov)
+    quant_sums = combine_linear(amps, cov, names=names)
+    assert fit_sums["tCr"]["amplitude"] == pytest.approx(8.0)
+    assert quant_sums["tCr"][0] == pytest.approx(8.0)
+    assert fit_sums["tCr"]["components"] == list(quant_sums["tCr"][2]) == ["Cr", "pcr"]
     sums = combine_sums(("GPC", "Cho"), np.array([1.0, 0.5]), np.eye(2) * 0.01)
     assert sums["tCho"]["components"] == ["GPC", "Cho"]
+    # a member named like a sum is kept as fitted, by both
+    assert "tCr" not in combine_sums(("tcr", "Cr"), amps[:2], cov[:2, :2])
+    assert "tCr" not in combine_linear(amps[:2], cov[:2, :2], names=("tcr", "Cr"))
 
 
 def test_apodized_data_are_flagged():

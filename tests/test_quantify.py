@@ -507,3 +507,15 @@ def test_docstring_examples_run():
 
     result = doctest.testmod(specproc.quantify.result)
     assert result.attempted > 0 and result.failed == 0
+
+
+def test_solution_concentration_of_a_phantom():
+    """Analytic: a solution of c_M molecules (amplitude k c_M per molecule) in water of c_W
+    (signal k N_W c_W, N_W = 2) gives back c_M; relaxation attenuations divide the signals."""
+    from specproc.quantify import solution_concentration_mm
+
+    k, c_m, c_w = 3.7e-3, 12.5, 55_510.0
+    assert solution_concentration_mm(k * c_m, k * 2 * c_w, water_mm=c_w) == pytest.approx(c_m)
+    got = solution_concentration_mm(0.8 * k * c_m, 0.5 * k * 2 * c_w, metabolite_relaxation=0.8,
+                                    water_relaxation=0.5, water_mm=c_w)
+    assert got == pytest.approx(c_m)

@@ -29,21 +29,10 @@ import numpy as np
 from specproc.data import Scan
 
 __all__ = [
-    "COMBINED_SUMS",
     "combine_sums",
     "covariance_from_fisher",
     "estimate_noise_sd",
 ]
-
-#: Combined sums reported when at least one component is a basis member. Names are matched
-#: case-insensitively, with the aliases listed.
-COMBINED_SUMS: dict[str, tuple[tuple[str, ...], ...]] = {
-    "tNAA": (("NAA",), ("NAAG",)),
-    "tCr": (("Cr",), ("PCr",)),
-    "tCho": (("GPC",), ("PCh", "PCho"), ("Cho",)),  # as specproc.quantify.DEFAULT_COMBINATIONS
-    "Glx": (("Glu",), ("Gln",)),
-}
-
 
 def estimate_noise_sd(
     scan: Scan,
@@ -146,18 +135,10 @@ def covariance_from_fisher(
     return cov, bad
 
 
-def _find(names: Sequence[str], aliases: Sequence[str]) -> int | None:
-    lowered = [n.lower() for n in names]
-    for alias in aliases:
-        if alias.lower() in lowered:
-            return lowered.index(alias.lower())
-    return None
-
-
 def combine_sums(
     names: Sequence[str], amplitudes: np.ndarray, covariance: np.ndarray
 ) -> dict[str, dict[str, object]]:
-    """Combined sums (tNAA, tCr, tCho, Glx) with variances including covariances.
+    """Combined sums (:func:`specproc.sums.sum_members`) with variances including covariances.
 
     ``var(Σ c_i) = Σ_i Σ_j Cov(c_i, c_j)`` over the components present.
 
@@ -167,13 +148,11 @@ def combine_sums(
         name -> ``{"components": [...], "amplitude": float, "crlb_sd": float,
         "crlb_percent": float}``.
     """
+    from specproc.sums import sum_members
+
     out: dict[str, dict[str, object]] = {}
-    for total, parts in COMBINED_SUMS.items():
-        idx = [i for i in (_find(names, p) for p in parts) if i is not None]
-        if not idx:
-            continue
-        if any(names[i].lower() == total.lower() for i in range(len(names))):
-            continue  # a member already carries this name
+    for total, members in sum_members(names).items():
+        idx = list(members)
         amp = float(np.sum(amplitudes[idx]))
         var = float(np.sum(covariance[np.ix_(idx, idx)]))
         sd = float(np.sqrt(var)) if np.isfinite(var) and var >= 0 else float("nan")

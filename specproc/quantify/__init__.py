@@ -9,7 +9,8 @@ Turns fitted metabolite amplitudes into numbers a study can use:
   relaxation attenuation of water per tissue compartment and of each metabolite, in molar units
   (mM, mmol per litre of GM+WM tissue, corrected for the CSF fraction) and molal units (mmol per
   kg of GM+WM tissue water);
-* combined sums (tNAA, tCr, tCho, Glx) with their SD from the covariance.
+* combined sums (tNAA, tCr, tCho, Glx; :data:`specproc.sums.SUMS`) with their SD from the
+  covariance.
 
 Everything works on plain dicts and arrays; it does not depend on the fitter's result class.
 The result is a :class:`Quantification` whose :meth:`Quantification.to_dict` records the
@@ -39,20 +40,20 @@ from specproc.quantify.relaxation import (
     relaxation_factor,
 )
 from specproc.quantify.result import NO_WATER_STATEMENT, Quantification, quantify
-from specproc.quantify.sums import DEFAULT_COMBINATIONS, combine_linear, ratio_linear
+from specproc.quantify.sums import combine_linear, ratio_linear
 from specproc.quantify.water import (
     TISSUE_WATER_CONTENT,
     TISSUE_WATER_CONTENT_SOURCE,
     TISSUES,
     WATER_PROTONS,
     concentration_factors,
+    solution_concentration_mm,
     validate_tissue_fractions,
     water_amplitude,
     water_mole_fractions,
 )
 
 __all__ = [
-    "DEFAULT_COMBINATIONS",
     "NO_WATER_STATEMENT",
     "RELAXATION_FILE",
     "TISSUES",
@@ -68,6 +69,7 @@ __all__ = [
     "quantify",
     "ratio_linear",
     "relaxation_factor",
+    "solution_concentration_mm",
     "validate_tissue_fractions",
     "water_amplitude",
     "water_mole_fractions",

@@ -16,7 +16,6 @@ from specproc.constants import WATER_MOLAR_MM
 from specproc.errors import InvalidInputError
 from specproc.quantify.relaxation import _RELAX_FORMULA, RelaxationTimes, load_relaxation_times
 from specproc.quantify.sums import (
-    DEFAULT_COMBINATIONS,
     _as_cov,
     _ratio_formula,
     combine_linear,
@@ -30,6 +29,7 @@ from specproc.quantify.water import (
     _positive,
     concentration_factors,
 )
+from specproc.sums import SUMS
 
 __all__ = ["NO_WATER_STATEMENT", "Quantification", "quantify"]
 
@@ -173,7 +173,7 @@ def quantify(
     water_content: Mapping[str, float] | None = None,
     water_protons: float = WATER_PROTONS,
     water_mm: float = WATER_MOLAR_MM,
-    combinations: Mapping[str, Sequence[str]] = DEFAULT_COMBINATIONS,
+    combinations: Mapping[str, Sequence[str]] = SUMS,
     reference: str = "tCr",
     fraction_atol: float = 0.01,
 ) -> Quantification:
@@ -218,7 +218,8 @@ def quantify(
     water_content, water_protons, water_mm, fraction_atol
         See :func:`concentration_factors`.
     combinations : mapping
-        Sums to report (default :data:`DEFAULT_COMBINATIONS`).
+        Sums to report (default :data:`specproc.sums.SUMS`; members matched
+        case-insensitively).
     reference : str
         Member or sum used as the ratio denominator (default ``"tCr"``).
 
@@ -261,8 +262,9 @@ def quantify(
     notes: list[str] = []
     if cov is None:
         notes.append("no covariance given: SDs are NaN")
-    clash = [c for c in combinations if c in member_names]
-    combos = {k: v for k, v in combinations.items() if k not in member_names}
+    lowered = {m.lower() for m in member_names}
+    clash = [c for c in combinations if c.lower() in lowered]
+    combos = {k: v for k, v in combinations.items() if k.lower() not in lowered}
     if clash:
         notes.append(f"fitted members named like sums kept as fitted: {clash}")
 

@@ -1,4 +1,5 @@
-"""Combined sums (tNAA, tCr, tCho, Glx) and ratios of linear combinations of amplitudes, with their
+"""Combined sums (tNAA, tCr, tCho, Glx; members in :data:`specproc.sums.SUMS`) and ratios of
+linear combinations of amplitudes, with their
 SDs from the amplitude covariance (first-order propagation).
 """
 
@@ -11,17 +12,9 @@ from typing import Any
 import numpy as np
 
 from specproc.errors import InvalidInputError
+from specproc.sums import SUMS, sum_members
 
-__all__ = ["DEFAULT_COMBINATIONS", "combine_linear", "ratio_linear"]
-
-#: Combined sums reported when at least one member was fitted (common practice naming).
-DEFAULT_COMBINATIONS: Mapping[str, tuple[str, ...]] = {
-    "tNAA": ("NAA", "NAAG"),
-    "tCr": ("Cr", "PCr"),
-    "tCho": ("GPC", "PCh", "PCho", "Cho"),  # as specproc.fit.crlb.COMBINED_SUMS
-    "Glx": ("Glu", "Gln"),
-}
-
+__all__ = ["combine_linear", "ratio_linear"]
 
 
 def _as_cov(covariance: Any, sd: Any, n: int) -> np.ndarray | None:
@@ -47,7 +40,7 @@ def combine_linear(
     covariance: Any = None,
     *,
     names: Sequence[str],
-    combinations: Mapping[str, Sequence[str]] = DEFAULT_COMBINATIONS,
+    combinations: Mapping[str, Sequence[str]] = SUMS,
     weights: Sequence[float] | np.ndarray | None = None,
 ) -> dict[str, tuple[float, float, tuple[str, ...]]]:
     """Weighted sums of members with their SD: ``x = Σ w_i v_i``, ``var x = wᵀ Σ w``.
@@ -59,10 +52,11 @@ def combine_linear(
     covariance : (n, n) array_like, optional
         Their covariance (e.g. the Cramér-Rao covariance of the fit); ``None`` gives NaN SDs.
     names : sequence of str
-        Member names (matched case-sensitively).
+        Member names (matched case-insensitively, :func:`specproc.sums.sum_members`).
     combinations : mapping
-        Name of each sum -> its member names; members not in ``names`` are skipped, a sum with no
-        member present is left out.
+        Name of each sum -> its member names (default :data:`specproc.sums.SUMS`); members not
+        in ``names`` are skipped, a sum with no member present or named like a member is left
+        out.
     weights : (n,) array_like, optional
         Per-member weights (default 1; concentration factors turn amplitude sums into
         concentration sums).
@@ -85,10 +79,8 @@ def combine_linear(
     w = np.ones_like(v) if weights is None else np.asarray(weights, dtype=float).reshape(-1)
     cov = _as_cov(covariance, None, v.size)
     out: dict[str, tuple[float, float, tuple[str, ...]]] = {}
-    for combo, members in combinations.items():
-        idx = [names.index(m) for m in members if m in names]
-        if not idx:
-            continue
+    for combo, members in sum_members(names, combinations).items():
+        idx = list(members)
         u = np.zeros_like(v)
         u[idx] = w[idx]
         value = float(u @ v)

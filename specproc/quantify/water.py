@@ -34,6 +34,7 @@ __all__ = [
     "TISSUE_WATER_CONTENT_SOURCE",
     "WATER_PROTONS",
     "concentration_factors",
+    "solution_concentration_mm",
     "validate_tissue_fractions",
     "water_amplitude",
     "water_mole_fractions",
@@ -324,6 +325,38 @@ def _water_content(water_content: Mapping[str, float] | None) -> dict[str, float
 
 
 
+
+
+def solution_concentration_mm(
+    amplitude: float,
+    water_amplitude: float,
+    *,
+    metabolite_relaxation: float = 1.0,
+    water_relaxation: float = 1.0,
+    water_mm: float = WATER_MOLAR_MM,
+    water_protons: float = WATER_PROTONS,
+) -> float:
+    """Concentration of a metabolite in a homogeneous solution (a phantom) against its water.
+
+    ``[M] = (A_M / R_M) / ((S_W / N_W) / R_W) · [H2O]``: the tissue formula of Gasparovic et
+    al. 2006 with one compartment of water content 1 and no CSF.
+
+    Parameters
+    ----------
+    amplitude : float
+        Fitted amplitude of the metabolite per molecule (the basis carries its protons).
+    water_amplitude : float
+        Water signal at t = 0 (:func:`water_amplitude`), on the same scale.
+    metabolite_relaxation, water_relaxation : float
+        Relaxation attenuations R (:func:`specproc.quantify.relaxation_factor`; 1: none).
+    water_mm : float
+        Water concentration of the solution, mM (default pure water).
+    water_protons : float
+        Protons per water molecule.
+    """
+    s_w = _positive(water_amplitude, "water amplitude", None)
+    return (float(amplitude) / metabolite_relaxation) / (
+        (s_w / water_protons) / water_relaxation) * float(water_mm)
 
 
 # ============================================================================ water signal
