@@ -567,6 +567,7 @@ def analyse_scan(
     qc = qc_from_scan(
         pre.scan, water=pre.water, residual=fit.residual, residual_ppm=fit.ppm,
         fit_range_ppm=fit.fit_range_ppm, crlb_percent=crlb, thresholds=thresholds,
+        known_noise_sd=fit.noise_sd, noise_regions_ppm=[tuple(r) for r in fit.noise_ppm],
         **transients,
     )
 

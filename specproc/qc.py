@@ -690,6 +690,7 @@ def qc_report(
     crlb_percent: Mapping[str, float] | None = None,
     thresholds: QCThresholds | Mapping[str, Any] | None = None,
     noise_regions_ppm: Sequence[tuple[float, float]] = DEFAULT_NOISE_REGIONS_PPM,
+    known_noise_sd: float | None = None,
     naa_ppm: float = NAA_PPM,
     naa_half_width_ppm: float = 0.1,
     water_centre_ppm: float = WATER_PPM,
@@ -718,7 +719,11 @@ def qc_report(
     thresholds : QCThresholds or mapping, optional
         Flag thresholds (default: common practice).
     noise_regions_ppm : sequence of (float, float)
-        Signal-free regions tried in order for the noise SD.
+        Signal-free regions tried in order for the noise SD; with ``known_noise_sd``, the
+        regions that value was measured in (recorded only).
+    known_noise_sd : float, optional
+        The noise SD of one spectral component already measured on this spectrum (the fit's,
+        :func:`specproc.fit.crlb.estimate_noise_sd`), so that a scan reports one noise SD.
     naa_ppm, naa_half_width_ppm, water_centre_ppm, water_half_width_ppm : float
         Peak search windows, ppm.
     baseline : {"none", "linear"}
@@ -734,7 +739,10 @@ def qc_report(
     nan = float("nan")
     sd = nan
     region_used = None
-    for region in noise_regions_ppm:
+    if known_noise_sd is not None:
+        sd = float(known_noise_sd)
+        region_used = [[float(a), float(b)] for a, b in noise_regions_ppm]
+    for region in noise_regions_ppm if known_noise_sd is None else ():
         try:
             sd = noise_sd(p, s, region_ppm=(float(region[0]), float(region[1])))
             region_used = [float(region[0]), float(region[1])]

@@ -106,6 +106,8 @@ def test_fit_gives_water_referenced_concentrations_and_the_header_timing(
     assert quant["water_referenced"] is True
     assert math.isfinite(quant["conc_molar_mm"]["NAA"]) and quant["conc_molar_mm"]["NAA"] > 0
     assert doc["qc"]["snr"] > 0
+    # one noise SD: the QC's SNR and the fit's bounds use the same value
+    assert doc["qc"]["noise_sd"] == doc["fit"]["noise_sd"]
     # the PRESS TE1 of the header key specproc_timings, and its source, reach the basis
     assert doc["protocol"]["te1_s"] == pytest.approx(0.02)
     assert doc["protocol"]["timing_sources"] == {"te1_s": "header"}

@@ -181,6 +181,9 @@ def _noise_statement(fit: Any, qc: Any) -> str:
         items = value if isinstance(value[0], list | tuple) else [value]
         return ", ".join(f"{sig(lo)} to {sig(hi)} ppm" for lo, hi in items)
 
+    if math.isclose(float(qc.noise_sd), float(fit.noise_sd), rel_tol=1e-12):
+        return (f"Noise: one noise SD, {sig(fit.noise_sd)}, measured in {ranges(fit_regions)}, "
+                "gives both the SNR above and the fit's error bounds.")
     return (f"Noise: the SNR above uses the noise SD of the spectrum in {ranges(regions)}; "
             f"the fit's error bounds use the noise SD {sig(fit.noise_sd)} measured in "
             f"{ranges(fit_regions) if fit_regions else 'the regions of the settings'}. "
