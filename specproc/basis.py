@@ -193,8 +193,10 @@ class BasisSet:
 
     def ppm(self) -> np.ndarray:
         """Chemical shift of each spectral point (fftshift order), ppm, decreasing."""
-        freq = np.fft.fftshift(np.fft.fftfreq(self.n_points, self.dwell_s))
-        return self.centre_ppm - freq / self.spectrometer_mhz
+        from specproc.axes import ppm_axis
+
+        return ppm_axis(self.n_points, dwell_s=self.dwell_s,
+                        spectrometer_mhz=self.spectrometer_mhz, centre_ppm=self.centre_ppm)
 
     # ------------------------------------------------------------------ derivation
     def subset(self, names: Iterable[str]) -> BasisSet:

@@ -232,12 +232,17 @@ class Scan:
 
     def freq_hz(self, n_points: int | None = None) -> np.ndarray:
         """Frequency of each spectral point (fftshift order) relative to the centre, Hz."""
-        n = self.n_points if n_points is None else int(n_points)
-        return np.fft.fftshift(np.fft.fftfreq(n, self.dwell_s))
+        from specproc.axes import freq_axis_hz
+
+        return freq_axis_hz(self.n_points if n_points is None else int(n_points), self.dwell_s)
 
     def ppm(self, n_points: int | None = None) -> np.ndarray:
         """Chemical shift of each spectral point (fftshift order), ppm, decreasing."""
-        return self.reference_ppm - self.freq_hz(n_points) / self.spectrometer_mhz
+        from specproc.axes import ppm_axis
+
+        return ppm_axis(self.n_points if n_points is None else int(n_points),
+                        dwell_s=self.dwell_s, spectrometer_mhz=self.spectrometer_mhz,
+                        centre_ppm=self.reference_ppm)
 
     def spectrum(self, n_points: int | None = None) -> np.ndarray:
         """Spectrum ``fftshift(fft(data))`` along time (zero-filled to ``n_points``)."""

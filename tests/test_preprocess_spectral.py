@@ -29,7 +29,6 @@ from specproc.preprocess.reference import (
 from specproc.preprocess.transform import (
     freq_axis_hz,
     hz_to_ppm,
-    measure_fwhm_hz,
     ppm_axis,
     ppm_to_hz,
     shift_frequency,
@@ -48,6 +47,16 @@ def singlets(peaks, t=T):
 
 
 METAB = [(2.008, 1.0, 4.0), (3.027, 0.8, 4.0), (3.2, 0.6, 4.0)]
+
+
+def measure_fwhm_hz(spectrum, freq_hz):
+    """FWHM of the tallest peak with specproc.qc.linewidth (the one FWHM definition), Hz."""
+    from specproc.qc import linewidth
+
+    ppm = CENTRE - np.asarray(freq_hz) / MHZ
+    peak = float(ppm[np.argmax(np.real(spectrum))])
+    return linewidth(ppm, spectrum, spectrometer_mhz=MHZ, centre_ppm=peak, half_width_ppm=0.01,
+                     max_search_ppm=1.0)[0]
 
 
 def fwhm(fid):

@@ -1,4 +1,4 @@
-"""Fourier transform, frequency axes and unit conversion in the NIfTI-MRS convention.
+"""Fourier transform and unit conversion in the NIfTI-MRS convention (axes: :mod:`specproc.axes`).
 
 Convention (Clarke et al., Magn Reson Med 2022;88:2358-2370, and :mod:`specproc.data`): with
 ``S = fftshift(fft(fid))`` and ``f = fftshift(fftfreq(n, dwell_s))`` the chemical shift of a
@@ -15,12 +15,12 @@ from __future__ import annotations
 import numpy as np
 from nmrglue.process import proc_base
 
+from specproc.axes import freq_axis_hz, hz_to_ppm, ppm_axis, ppm_to_hz
 from specproc.errors import InvalidInputError
 
 __all__ = [
     "freq_axis_hz",
     "hz_to_ppm",
-    "measure_fwhm_hz",
     "ppm_axis",
     "ppm_to_hz",
     "ppm_window_mask",
@@ -28,47 +28,6 @@ __all__ = [
     "to_fid",
     "to_spectrum",
 ]
-
-
-def freq_axis_hz(n_points: int, dwell_s: float) -> np.ndarray:
-    """Frequency of each spectral point relative to the receiver centre, Hz (fftshift order).
-
-    Parameters
-    ----------
-    n_points : int
-        Number of spectral points.
-    dwell_s : float
-        Sampling interval of the FID, s.
-
-    Returns
-    -------
-    freq_hz : (n_points,) ndarray
-        Increasing frequencies ``fftshift(fftfreq(n_points, dwell_s))``.
-    """
-    return np.fft.fftshift(np.fft.fftfreq(int(n_points), float(dwell_s)))
-
-
-def hz_to_ppm(
-    freq_hz: float | np.ndarray, *, spectrometer_mhz: float, centre_ppm: float
-) -> float | np.ndarray:
-    """Shift of an FFT-axis frequency: ``ppm = centre_ppm - freq_hz / spectrometer_mhz``."""
-    return centre_ppm - np.asarray(freq_hz, dtype=float) / spectrometer_mhz
-
-
-def ppm_to_hz(
-    shift_ppm: float | np.ndarray, *, spectrometer_mhz: float, centre_ppm: float
-) -> float | np.ndarray:
-    """FFT-axis frequency of a chemical shift: ``freq_hz = (centre_ppm - shift_ppm) · MHz``."""
-    return (centre_ppm - np.asarray(shift_ppm, dtype=float)) * spectrometer_mhz
-
-
-def ppm_axis(
-    n_points: int, *, dwell_s: float, spectrometer_mhz: float, centre_ppm: float
-) -> np.ndarray:
-    """Chemical shift of each spectral point (fftshift order, decreasing), ppm."""
-    return np.asarray(hz_to_ppm(
-        freq_axis_hz(n_points, dwell_s), spectrometer_mhz=spectrometer_mhz, centre_ppm=centre_ppm
-    ))
 
 
 def ppm_window_mask(ppm: np.ndarray, window_ppm: tuple[float, float]) -> np.ndarray:
@@ -140,42 +99,3 @@ def shift_frequency(fid: np.ndarray, *, shift_hz: float | np.ndarray, dwell_s: f
     t = np.arange(data.shape[-1]) * float(dwell_s)
     shift = np.asarray(shift_hz, dtype=float)[..., None]
     return data * np.exp(2j * np.pi * shift * t)
-
-
-def measure_fwhm_hz(spectrum: np.ndarray, freq_hz: np.ndarray) -> float:
-    """Full width at half maximum of the tallest peak of a real (absorption) spectrum, Hz.
-
-    The half-maximum crossings on both sides of the maximum are found by linear interpolation
-    between neighbouring points (zero-fill the FID first for fine sampling).
-
-    Parameters
-    ----------
-    spectrum : (n,) ndarray
-        Spectrum; its real part is used.
-    freq_hz : (n,) ndarray
-        Increasing frequency axis of the spectrum, Hz.
-
-    Returns
-    -------
-    fwhm_hz : float
-        ``nan`` when a half-maximum crossing lies outside the spectrum.
-    """
-    y = np.real(np.asarray(spectrum))
-    f = np.asarray(freq_hz, dtype=float)
-    k = int(np.argmax(y))
-    half = y[k] / 2.0
-    if half <= 0:
-        return float("nan")
-    left = k
-    while left > 0 and y[left] > half:
-        left -= 1
-    right = k
-    while right < y.size - 1 and y[right] > half:
-        right += 1
-    if y[left] > half or y[right] > half:
-        return float("nan")
-    f_left = f[left] + (half - y[left]) * (f[left + 1] - f[left]) / (y[left + 1] - y[left])
-    f_right = f[right - 1] + (half - y[right - 1]) * (f[right] - f[right - 1]) / (
-        y[right] - y[right - 1]
-    )
-    return float(f_right - f_left)
