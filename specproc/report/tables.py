@@ -368,74 +368,27 @@ def processing_rows(provenance: Sequence[Mapping[str, Any]]) -> list[dict[str, s
 
 
 # ============================================================================ TOML
-def _toml_key(key: str) -> str:
-    if key and all(c.isalnum() or c in "-_" for c in key):
-        return key
-    return _toml_string(key)
-
-
-def _toml_string(text: str) -> str:
-    out = ['"']
-    for ch in text:
-        if ch == '"':
-            out.append('\\"')
-        elif ch == "\\":
-            out.append("\\\\")
-        elif ch == "\n":
-            out.append("\\n")
-        elif ch == "\t":
-            out.append("\\t")
-        elif ord(ch) < 0x20 or ord(ch) == 0x7F:
-            out.append(f"\\u{ord(ch):04x}")
-        else:
-            out.append(ch)
-    out.append('"')
-    return "".join(out)
-
-
-def _toml_value(value: Any) -> str:
-    if isinstance(value, bool):
-        return "true" if value else "false"
-    if isinstance(value, int | np.integer):
-        return str(int(value))
-    if isinstance(value, float | np.floating):
-        v = float(value)
-        if math.isnan(v):
-            return "nan"
-        if math.isinf(v):
-            return "inf" if v > 0 else "-inf"
-        return repr(v)
-    if isinstance(value, str):
-        return _toml_string(value)
-    if isinstance(value, Mapping):
-        return "{ " + ", ".join(f"{_toml_key(str(k))} = {_toml_value(v)}"
-                                for k, v in value.items()) + " }"
-    if isinstance(value, list | tuple):
-        return "[" + ", ".join(_toml_value(v) for v in value) + "]"
-    raise TypeError(f"cannot write {type(value).__name__} as TOML")
-
-
 def config_to_toml(config: Mapping[str, Any], *, header: str | None = None) -> str:
-    """Write a nested configuration dict as TOML text (readable back with :mod:`tomllib`).
+    """A nested configuration dict as TOML text (:func:`tomli_w.dumps`), readable back with
+    :mod:`tomllib`; ``header`` becomes comment lines at the top.
 
-    Tables become ``[a.b]`` sections; lists of tables are written inline.
+    Raises
+    ------
+    TypeError
+        For a value TOML cannot hold (e.g. ``None``).
     """
-    lines: list[str] = []
-    if header:
-        lines += [f"# {line}" for line in header.splitlines()]
-        lines.append("")
+    import tomli_w
 
-    def emit(table: Mapping[str, Any], prefix: tuple[str, ...]) -> None:
-        scalars = {k: v for k, v in table.items() if not isinstance(v, Mapping)}
-        tables = {k: v for k, v in table.items() if isinstance(v, Mapping)}
-        if (scalars or not tables) and prefix:  # an empty table is written too
-            lines.append("[" + ".".join(_toml_key(p) for p in prefix) + "]")
-        for key, value in scalars.items():
-            lines.append(f"{_toml_key(str(key))} = {_toml_value(value)}")
-        if scalars or (not tables and prefix):
-            lines.append("")
-        for key, value in tables.items():
-            emit(value, (*prefix, str(key)))
+    comments = "".join(f"# {line}\n" for line in (header or "").splitlines())
+    return (comments + "\n" if comments else "") + tomli_w.dumps(_toml_ready(config))
 
-    emit(config, ())
-    return "\n".join(lines).rstrip() + "\n"
+
+def _toml_ready(value: Any) -> Any:
+    """numpy scalars as Python numbers, tuples as lists (what tomli_w accepts)."""
+    if isinstance(value, Mapping):
+        return {str(k): _toml_ready(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_toml_ready(v) for v in value]
+    if isinstance(value, np.generic):
+        return value.item()
+    return value
