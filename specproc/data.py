@@ -29,7 +29,7 @@ import numpy as np
 from specproc.constants import field_from_larmor, get_nucleus
 from specproc.errors import InvalidInputError
 
-__all__ = ["DIM_TAGS", "Scan", "is_valid_dim_tag", "make_step_record"]
+__all__ = ["DIM_TAGS", "Scan", "is_valid_dim_tag", "make_step_record", "user_key", "user_value"]
 
 #: Dimension tags of the NIfTI-MRS standard (the numbered ones are matched by prefix).
 DIM_TAGS: tuple[str, ...] = (
@@ -80,6 +80,23 @@ def make_step_record(method: str, details: Mapping[str, Any] | None = None) -> d
     }
 
 
+def user_key(value: Any, description: str) -> dict[str, Any]:
+    """A user-defined header entry in the standard's form ``{"Value", "Description"}``."""
+    return {"Value": value, "Description": str(description)}
+
+
+def user_value(meta: Mapping[str, Any], key: str) -> Any:
+    """The value of a user-defined key: ``{"Value": v, "Description": ...}`` or a bare ``v``.
+
+    The standard asks for the object form; files written before it was followed hold the bare
+    value, which is accepted too. ``None`` when the key is absent.
+    """
+    value = meta.get(key)
+    if isinstance(value, Mapping) and "Value" in value:
+        return value["Value"]
+    return value
+
+
 @dataclass(frozen=True, eq=False)
 class Scan:
     """Complex time-domain MRS data of one voxel with acquisition metadata.
@@ -116,6 +133,9 @@ class Scan:
         The original header as read from the file, kept verbatim (JSON-serialisable values).
     provenance : tuple of dict
         Processing records (NIfTI-MRS ``ProcessingApplied`` entries), oldest first.
+    affine : (4, 4) ndarray or None
+        Voxel index to scanner coordinates, mm (the NIfTI affine): the column norms of its
+        3 x 3 part are the voxel size, its last column the voxel position; ``None``: unknown.
     source : str or None
         Path of the file the data came from.
     format : str or None
@@ -138,6 +158,7 @@ class Scan:
     dim_headers: Mapping[str, Any] = field(default_factory=dict)
     header: Mapping[str, Any] = field(default_factory=dict)
     provenance: tuple[dict[str, Any], ...] = ()
+    affine: np.ndarray | None = None
     source: str | None = None
     format: str | None = None
 
@@ -182,6 +203,12 @@ class Scan:
 
             object.__setattr__(self, "timings", parse_timings(
                 self.timings, where=where, what="sequence timings"))
+        if self.affine is not None:
+            affine = np.array(self.affine, dtype=float)
+            if affine.shape != (4, 4) or not np.all(np.isfinite(affine)):
+                raise InvalidInputError("the voxel affine must be a finite 4 x 4 matrix", where)
+            affine.flags.writeable = False
+            object.__setattr__(self, "affine", affine)
         if data.flags.writeable:  # copy so that the caller's array cannot change the Scan
             frozen = data.copy()
             frozen.flags.writeable = False
@@ -209,6 +236,22 @@ class Scan:
     def field_t(self) -> float:
         """Field strength B0 = f / (γ/2π), T."""
         return field_from_larmor(self.spectrometer_mhz, self.nucleus)
+
+    @property
+    def voxel_mm(self) -> tuple[float, float, float] | None:
+        """Voxel edge lengths from the affine, mm (``None`` when the affine is unknown)."""
+        if self.affine is None:
+            return None
+        x, y, z = (float(v) for v in np.linalg.norm(self.affine[:3, :3], axis=0))
+        return x, y, z
+
+    @property
+    def voxel_position_mm(self) -> tuple[float, float, float] | None:
+        """Scanner coordinates of the voxel centre from the affine, mm (``None``: unknown)."""
+        if self.affine is None:
+            return None
+        x, y, z = (float(v) for v in self.affine[:3, 3])
+        return x, y, z
 
     @property
     def reference_ppm(self) -> float:

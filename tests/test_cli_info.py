@@ -125,7 +125,7 @@ def _bad_files(tmp_path):
     bad = {}
     bad["missing"] = (tmp_path / "missing.nii", "file not found")
     (tmp_path / "truncated.nii").write_bytes(raw[:-40])
-    bad["truncated"] = (tmp_path / "truncated.nii", "corrupt")
+    bad["truncated"] = (tmp_path / "truncated.nii", "truncated")
     (tmp_path / "truncated.nii.gz").write_bytes(gzip.compress(raw)[:200])
     bad["truncated gz"] = (tmp_path / "truncated.nii.gz", "gzip")
     (tmp_path / "corrupt.nii").write_bytes(raw[:4] + b"junkjunk" + raw[12:])  # NIfTI-2 magic

@@ -41,16 +41,25 @@ from typing import Any
 from specproc.constants import SUPPORTED_NUCLEI
 from specproc.data import Scan
 from specproc.errors import InvalidInputError
-from specproc.io._util import normalise_sequence_name, require_file
+from specproc.io._util import check_physical_ranges, normalise_sequence_name, require_file
 from specproc.io.dicom_mrs import is_dicom_bytes, read_dicom_mrs
 from specproc.io.jcampdx import is_jcampdx_text, read_jcampdx
-from specproc.io.nifti_mrs import is_nifti_bytes, read_nifti_mrs, write_nifti_mrs
+from specproc.io.nifti_mrs import (
+    HEADER_KEYS as NIFTI_HEADER_KEYS,
+)
+from specproc.io.nifti_mrs import (
+    is_nifti_bytes,
+    read_nifti_mrs,
+    scaling_note,
+    write_nifti_mrs,
+)
 from specproc.io.npz import is_zip_bytes, read_npz, write_npz
 from specproc.io.text import read_text, write_text_fid
 
 __all__ = [
     "FORMATS",
     "detect_format",
+    "input_notes",
     "load",
     "normalise_sequence_name",
     "save",
@@ -63,6 +72,13 @@ FORMATS: dict[str, Callable[..., Scan]] = {
     "jcamp-dx": read_jcampdx,
     "npz": read_npz,
     "text": read_text,
+}
+
+#: How each format names the acquisition values (for range errors); others use the attribute.
+_HEADER_KEYS: dict[str, dict[str, str]] = {
+    "nifti-mrs": NIFTI_HEADER_KEYS,
+    "dicom": {"te_s": "Echo Time", "tr_s": "Repetition Time", "dwell_s": "1 / Spectral Width",
+              "spectrometer_mhz": "Transmitter Frequency"},
 }
 
 _WRITERS: dict[str, Callable[[Scan, Path], None]] = {
@@ -179,11 +195,15 @@ def load(path: str | os.PathLike[str], **options: Any) -> Scan:
     ------
     InvalidInputError
         For every problem with the file (missing, truncated, corrupt, NaN, no spectrometer
-        frequency, zero-length data, bad dimension tags, more than one voxel) and for a
-        nucleus specproc does not process yet (see ``constants.SUPPORTED_NUCLEI``).
+        frequency, zero-length data, bad dimension tags, more than one voxel, more data than
+        :func:`specproc.io._util.max_input_bytes`), for acquisition values outside their
+        physical range (:data:`specproc.io._util.PHYSICAL_RANGES`; the message names the
+        header key and its unit) and for a nucleus specproc does not process yet (see
+        ``constants.SUPPORTED_NUCLEI``).
     """
     p = Path(path)
-    reader = FORMATS[detect_format(p)]
+    kind = detect_format(p)
+    reader = FORMATS[kind]
     try:
         scan = reader(p, **options)
     except InvalidInputError as exc:
@@ -196,7 +216,16 @@ def load(path: str | os.PathLike[str], **options: Any) -> Scan:
             f"{', '.join(sorted(SUPPORTED_NUCLEI))})",
             p,
         )
+    width = scan.header.get("SpectralWidth") if kind == "nifti-mrs" else None
+    check_physical_ranges(scan, _HEADER_KEYS.get(kind, {}), p, spectral_width_hz=width)
     return scan
+
+
+def input_notes(scan: Scan) -> list[str]:
+    """What the reader did to the data that the user should hear about (e.g. intensity scaling).
+    """
+    note = scaling_note(scan)
+    return [] if note is None else [note]
 
 
 def _suffix(path: Path) -> str:

@@ -4,6 +4,10 @@
   :class:`~specproc.errors.InvalidInputError` that names the file.
 * :func:`normalise_sequence_name` maps the free text of a header to specproc's sequence names.
 * small checked converters for numbers read from headers.
+* :func:`max_input_bytes` / :func:`read_capped`: the cap on the data a file may declare
+  (checked before anything is decompressed or allocated) and a streaming read up to it.
+* :func:`check_physical_ranges`: the plausible range of every acquisition value, with a message
+  naming the header key and its unit.
 """
 
 from __future__ import annotations
@@ -22,11 +26,17 @@ import numpy as np
 from specproc.errors import InvalidInputError
 
 __all__ = [
+    "DEFAULT_MAX_INPUT_MB",
+    "PHYSICAL_RANGES",
     "SEQUENCE_NAMES",
+    "check_declared_size",
     "check_options",
+    "check_physical_ranges",
+    "max_input_bytes",
     "merge_value",
     "normalise_sequence_name",
     "optional_time_s",
+    "read_capped",
     "reader_boundary",
     "require_file",
 ]
@@ -196,3 +206,164 @@ def merge_value(
     raise InvalidInputError(
         f"the file gives {name} = {file_value!r} but the load option says {option_value!r}", path
     )
+
+
+# ------------------------------------------------------------------------------ size cap
+#: Largest amount of data (decompressed) one input file may declare, MiB. Single-voxel scans
+#: are far smaller (2,048 points x 32 coils x 512 transients in complex64 is 256 MiB).
+DEFAULT_MAX_INPUT_MB: float = 2048.0
+#: Environment variable that changes :data:`DEFAULT_MAX_INPUT_MB`.
+MAX_INPUT_ENV: str = "SPECPROC_MAX_INPUT_MB"
+_CHUNK_BYTES = 1 << 22
+
+
+def max_input_bytes() -> int:
+    """The cap on the decompressed data of one input file, bytes.
+
+    ``SPECPROC_MAX_INPUT_MB`` (a positive number of MiB) overrides the default of
+    :data:`DEFAULT_MAX_INPUT_MB`; an unusable value is an error naming the variable.
+    """
+    text = os.environ.get(MAX_INPUT_ENV, "").strip()
+    if not text:
+        return int(DEFAULT_MAX_INPUT_MB * 2**20)
+    try:
+        mb = float(text)
+    except ValueError:
+        mb = float("nan")
+    if not np.isfinite(mb) or mb <= 0:
+        raise InvalidInputError(
+            f"environment variable {MAX_INPUT_ENV} must be a positive number of MiB, "
+            f"got {text[:40]!r}"
+        )
+    return int(min(mb, 2.0**43) * 2**20)
+
+
+def check_declared_size(n_bytes: int, path: Any, what: str) -> None:
+    """Raise InvalidInputError if a file declares more data than :func:`max_input_bytes`."""
+    cap = max_input_bytes()
+    if n_bytes > cap:
+        raise InvalidInputError(
+            f"the {what} declares {n_bytes / 2**20:.6g} MiB of data, more than the limit of "
+            f"{cap / 2**20:.6g} MiB (set {MAX_INPUT_ENV} to raise it)",
+            path,
+        )
+
+
+def read_capped(fh: Any, n_bytes: int, path: Any, what: str) -> bytes:
+    """Read exactly ``n_bytes`` from an open (possibly gzip) stream, in chunks.
+
+    The size is checked against the cap first, so nothing larger is ever allocated; a stream
+    that ends early is "truncated".
+    """
+    check_declared_size(n_bytes, path, what)
+    buffer = bytearray()
+    while len(buffer) < n_bytes:
+        chunk = fh.read(min(_CHUNK_BYTES, n_bytes - len(buffer)))
+        if not chunk:
+            raise InvalidInputError(
+                f"truncated: the header promises {n_bytes} bytes, the file holds "
+                f"{len(buffer)}",
+                path,
+            )
+        buffer += chunk
+    return bytes(buffer)
+
+
+# ------------------------------------------------------------------ physical ranges
+#: Plausible range of each acquisition value of a Scan: (low, high, unit), SI. Wide enough for
+#: any in-vivo or phantom single-voxel scan (common practice: TE 0-1 s, TR up to a minute,
+#: 0.01-30 T, spectral widths 10 Hz to 10 MHz); a value outside is a unit mistake or a
+#: corrupt header.
+PHYSICAL_RANGES: dict[str, tuple[float, float, str]] = {
+    "te_s": (0.0, 2.0, "s"),
+    "tr_s": (0.0, 120.0, "s"),
+    "tm_s": (0.0, 2.0, "s"),
+    "field_t": (0.01, 30.0, "T"),
+    "dwell_s": (1e-7, 0.1, "s"),
+}
+#: Shortest echo time of the echo sequences (PRESS, STEAM, semi-LASER, spin echo), s (common
+#: practice: their refocusing pulses alone take more than a millisecond).
+MIN_ECHO_TE_S: float = 1e-3
+_ECHO_SEQUENCES = ("press", "steam", "semi-laser", "spin-echo")
+
+
+def _show(value: float) -> str:
+    return f"{value:.6g}"
+
+
+def check_physical_ranges(
+    scan: Any, keys: Mapping[str, str], path: Any, *, spectral_width_hz: Any = None
+) -> None:
+    """Refuse acquisition values no scanner can produce, naming the header key and its unit.
+
+    Parameters
+    ----------
+    scan : Scan
+        The values checked: ``te_s``, ``tr_s``, ``tm_s``, ``dwell_s`` and the field strength
+        implied by ``spectrometer_mhz``.
+    keys : mapping
+        How the file names each value, e.g. ``{"te_s": "EchoTime (s)"}``; missing entries use
+        the attribute name.
+    path : path-like
+        The file, for the message.
+    spectral_width_hz : float, optional
+        A spectral width the header also gives; it must agree with 1/dwell within 1 %.
+
+    Raises
+    ------
+    InvalidInputError
+        Naming the key, its value in the header's unit and the accepted range.
+    """
+    def name(attr: str) -> str:
+        return keys.get(attr, attr)
+
+    for attr in ("te_s", "tr_s", "tm_s", "dwell_s"):
+        value = getattr(scan, attr)
+        if value is None:
+            continue
+        low, high, unit = PHYSICAL_RANGES[attr]
+        if not low <= value <= high:
+            hint = " (a value in milliseconds?)" if unit == "s" and value > high else ""
+            raise InvalidInputError(
+                f"{name(attr)} = {_show(value)} s is outside the plausible range "
+                f"{_show(low)}-{_show(high)} {unit}{hint}",
+                path,
+            )
+    low, high, unit = PHYSICAL_RANGES["field_t"]
+    field_t = scan.field_t
+    if not low <= field_t <= high:
+        raise InvalidInputError(
+            f"{name('spectrometer_mhz')} = {_show(scan.spectrometer_mhz)} MHz means a field of "
+            f"{_show(field_t)} T for {scan.nucleus}, outside the plausible range "
+            f"{_show(low)}-{_show(high)} {unit}",
+            path,
+        )
+    if scan.sequence in _ECHO_SEQUENCES and scan.te_s is not None and (
+        scan.te_s < MIN_ECHO_TE_S
+    ):
+        raise InvalidInputError(
+            f"{name('te_s')} = {_show(scan.te_s)} s is shorter than any {scan.sequence} echo "
+            f"(at least {_show(MIN_ECHO_TE_S * 1e3)} ms)",
+            path,
+        )
+    if scan.te_s is not None and scan.tr_s is not None and 0 < scan.tr_s < scan.te_s:
+        raise InvalidInputError(
+            f"{name('tr_s')} = {_show(scan.tr_s)} s is shorter than {name('te_s')} = "
+            f"{_show(scan.te_s)} s",
+            path,
+        )
+    if spectral_width_hz is not None:
+        width = spectral_width_hz
+        if isinstance(width, list | tuple) and len(width) == 1:
+            width = width[0]
+        if isinstance(width, bool) or not isinstance(width, int | float):
+            raise InvalidInputError(
+                f"SpectralWidth must be a number (Hz), got {str(width)[:40]!r}", path
+            )
+        expected = scan.spectral_width_hz
+        if not (np.isfinite(width) and abs(width - expected) <= 0.01 * expected):
+            raise InvalidInputError(
+                f"SpectralWidth = {_show(float(width))} Hz disagrees with the dwell time "
+                f"({_show(scan.dwell_s)} s, i.e. {_show(expected)} Hz)",
+                path,
+            )

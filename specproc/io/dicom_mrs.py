@@ -45,6 +45,7 @@ import numpy as np
 from specproc.data import Scan
 from specproc.errors import InvalidInputError
 from specproc.io._util import (
+    check_declared_size,
     check_options,
     normalise_sequence_name,
     optional_time_s,
@@ -141,6 +142,7 @@ def read_dicom_mrs(
     p = require_file(path)
     check_options(options, (), "DICOM", p)
     with reader_boundary(p, "DICOM"):
+        check_declared_size(p.stat().st_size, p, "DICOM file")
         ds = pydicom.dcmread(p)
         sop = str(ds.get("SOPClassUID", "") or ds.file_meta.get("MediaStorageSOPClassUID", ""))
         if sop != MR_SPECTROSCOPY_STORAGE:

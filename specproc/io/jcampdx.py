@@ -33,6 +33,7 @@ import numpy as np
 from specproc.data import Scan
 from specproc.errors import InvalidInputError
 from specproc.io._util import (
+    check_declared_size,
     check_options,
     merge_value,
     normalise_sequence_name,
@@ -131,6 +132,7 @@ def read_jcampdx(
     p = require_file(path)
     check_options(options, _OPTIONS, "JCAMP-DX", p)
     with reader_boundary(p, "JCAMP-DX"):
+        check_declared_size(p.stat().st_size, p, "JCAMP-DX file")
         with open(p, "rb") as fh:
             if not is_jcampdx_text(fh.read(4096)):
                 raise InvalidInputError("not a JCAMP-DX file (no ##LABEL= record first)", p)

@@ -39,6 +39,7 @@ import json
 import math
 import os
 import zlib
+from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
 
@@ -46,12 +47,14 @@ import nibabel as nib
 import numpy as np
 
 from specproc._json import to_jsonable
-from specproc.data import Scan, is_valid_dim_tag
+from specproc.data import Scan, is_valid_dim_tag, make_step_record, user_key, user_value
 from specproc.errors import InvalidInputError
 from specproc.io._util import (
+    check_declared_size,
     check_options,
     normalise_sequence_name,
     optional_time_s,
+    read_capped,
     reader_boundary,
     require_file,
 )
@@ -60,9 +63,11 @@ from specproc.protocol import TIMINGS_HEADER_KEY, parse_timings
 __all__ = [
     "DEFAULT_DIM_TAGS",
     "EXTENSION_CODE",
+    "HEADER_KEYS",
     "INTENT_NAME",
     "is_nifti_bytes",
     "read_nifti_mrs",
+    "scaling_note",
     "write_nifti_mrs",
 ]
 
@@ -75,17 +80,21 @@ DEFAULT_DIM_TAGS: dict[int, str] = {5: "DIM_COIL", 6: "DIM_DYN", 7: "DIM_INDIREC
 
 _OPTIONS: tuple[str, ...] = ()
 _TIME_UNIT_SCALE = {"sec": 1.0, "msec": 1e-3, "usec": 1e-6, "unknown": 1.0}
-_SPEC_KEYS = (
-    "SpectrometerFrequency",
-    "ResonantNucleus",
-    "EchoTime",
-    "RepetitionTime",
-    "MixingTime",
-    "SequenceName",
-    "ProtocolName",
-    "WaterSuppressed",
-    "ProcessingApplied",
-)
+#: Keys the NIfTI-MRS standard defines (required and standard-defined metadata, version 0.9
+#: and its changelog to 0.11); any other key is user-defined and must be an object with a
+#: ``Description`` (and, by convention, a ``Value``).
+STANDARD_KEYS: frozenset[str] = frozenset((
+    "SpectrometerFrequency", "ResonantNucleus", "SpectralWidth", "EchoTime",
+    "RepetitionTime", "InversionTime", "MixingTime", "AcquisitionStartTime",
+    "ExcitationFlipAngle", "TxOffset", "RxOffset", "SpecFreqChemShift", "VOI",
+    "WaterSuppressed", "WaterSuppressionType", "SequenceTriggered", "Manufacturer",
+    "ManufacturersModelName", "DeviceSerialNumber", "SoftwareVersions", "InstitutionName",
+    "InstitutionAddress", "TxCoil", "RxCoil", "SequenceName", "ProtocolName",
+    "PatientPosition", "PatientName", "PatientID", "PatientWeight", "PatientDoB",
+    "PatientSex", "ConversionMethod", "ConversionTime", "OriginalFile", "kSpace",
+    "EditCondition", "EditPulse", "ProcessingApplied",
+    *(f"dim_{n}{suffix}" for n in (5, 6, 7) for suffix in ("", "_info", "_header")),
+))
 
 
 def is_nifti_bytes(head: bytes) -> int | None:
@@ -102,13 +111,59 @@ def is_nifti_bytes(head: bytes) -> int | None:
 
 
 def _read_raw(path: Path) -> bytes:
-    raw = path.read_bytes()
-    if raw[:2] == b"\x1f\x8b":
-        try:
-            raw = gzip.decompress(raw)
-        except (OSError, EOFError, zlib.error) as exc:
-            raise InvalidInputError(f"truncated or corrupt gzip data: {exc}", path) from None
+    """The bytes of the image (header, extensions, data), read up to what the header declares.
+
+    The fixed header is read first; the declared size (``vox_offset`` plus the data) is
+    checked against :func:`~specproc.io._util.max_input_bytes` before the rest is read,
+    in chunks, from the (possibly gzip) stream. Bytes beyond the declared data are refused.
+    """
+    with open(path, "rb") as fh:
+        compressed = fh.read(2) == b"\x1f\x8b"
+    opener: Any = gzip.open if compressed else open
+    try:
+        with opener(path, "rb") as fh:
+            head = fh.read(540)
+            version = is_nifti_bytes(head[:348])
+            if version is None:
+                raise InvalidInputError("not a NIfTI file (no NIfTI-1 or NIfTI-2 magic)", path)
+            header_class = nib.Nifti2Header if version == 2 else nib.Nifti1Header
+            size = 540 if version == 2 else 348
+            if len(head) < size:
+                raise InvalidInputError(
+                    f"truncated: {len(head)} bytes, less than the {size}-byte header", path
+                )
+            fixed = header_class(binaryblock=head[:size], check=False)
+            total = _declared_bytes(fixed, size, path)
+            raw = head[:total] if total <= len(head) else head + read_capped(
+                fh, total - len(head), path, "NIfTI-MRS header"
+            )
+            if len(head) > total or fh.read(1):
+                raise InvalidInputError(
+                    f"the file holds more than the {total} bytes its header declares "
+                    "(trailing data after the image)",
+                    path,
+                )
+    except (OSError, EOFError, zlib.error) as exc:
+        raise InvalidInputError(f"truncated or corrupt gzip data: {exc}", path) from None
     return raw
+
+
+def _declared_bytes(fixed: Any, header_size: int, path: Path) -> int:
+    """``vox_offset`` plus the size of the data a fixed NIfTI header declares, bytes."""
+    dim = [int(d) for d in fixed["dim"]]
+    ndim = dim[0]
+    if not 1 <= ndim <= 7:
+        raise InvalidInputError(f"the header declares {ndim} dimensions (1 to 7 allowed)", path)
+    shape = dim[1:1 + ndim]
+    if any(d < 0 for d in shape):
+        raise InvalidInputError(f"negative dimension sizes in the header: {shape}", path)
+    itemsize = fixed.get_data_dtype().itemsize
+    offset = float(fixed["vox_offset"])
+    if not np.isfinite(offset) or offset < header_size or offset != int(offset):
+        raise InvalidInputError(f"impossible data offset vox_offset = {offset:.6g}", path)
+    total = int(offset) + math.prod(shape) * itemsize
+    check_declared_size(total, path, "NIfTI-MRS header")
+    return total
 
 
 def read_nifti_mrs(path: str | os.PathLike[str], **options: Any) -> Scan:
@@ -132,15 +187,15 @@ def read_nifti_mrs(path: str | os.PathLike[str], **options: Any) -> Scan:
     InvalidInputError
         For a missing, truncated or corrupt file, no code-44 extension, invalid JSON, missing
         ``SpectrometerFrequency`` or ``ResonantNucleus``, more than one voxel, real data,
-        unknown or inconsistent dimension tags, NaN or infinite samples, zero-length data.
+        unknown or inconsistent dimension tags, NaN or infinite samples, zero-length data,
+        more data than :func:`specproc.io._util.max_input_bytes` or more bytes than the
+        header declares.
     """
     p = require_file(path)
     check_options(options, _OPTIONS, "NIfTI-MRS", p)
     with reader_boundary(p, "NIfTI-MRS"):
         raw = _read_raw(p)
         version = is_nifti_bytes(raw[:348])
-        if version is None:
-            raise InvalidInputError("not a NIfTI file (no NIfTI-1 or NIfTI-2 magic)", p)
         if version == 1 and raw[344:348] == b"ni1\x00":
             raise InvalidInputError("a NIfTI header/image pair is not supported; use .nii", p)
         image_class = nib.Nifti2Image if version == 2 else nib.Nifti1Image
@@ -200,17 +255,21 @@ def _scan_from_image(img: Any, p: Path, *, n_bytes: int) -> Scan:
     if data.dtype not in (np.complex64, np.complex128):
         data = data.astype(np.complex128)
 
-    provenance = meta.get("ProcessingApplied", [])
-    if not isinstance(provenance, list) or not all(isinstance(r, dict) for r in provenance):
-        raise InvalidInputError("ProcessingApplied must be a list of objects", p)
+    provenance = _processing_applied(meta.get("ProcessingApplied", []), p)
+    scaling = _intensity_scaling(img)
+    if scaling is not None:
+        provenance.append(make_step_record("intensity scaling", {
+            "scl_slope": scaling[0], "scl_inter": scaling[1],
+            "note": "the NIfTI header's scl_slope and scl_inter were applied to the samples",
+        }))
     water = meta.get("WaterSuppressed")
     if water is not None and not isinstance(water, bool):
         raise InvalidInputError(f"WaterSuppressed must be true or false, got {water!r}", p)
-    centre = meta.get("specproc_centre_ppm")
+    centre = user_value(meta, "specproc_centre_ppm")
     if centre is not None:
-        centre = _finite(centre, "specproc_centre_ppm", p)
-    seq_text = meta.get("SequenceName")
-    protocol = meta.get("ProtocolName")
+        centre = _finite(centre, "specproc_centre_ppm (ppm)", p)
+    seq_text = _optional_text(meta, "SequenceName", p)
+    protocol = _optional_text(meta, "ProtocolName", p)
     timings = _timings(meta.get(TIMINGS_HEADER_KEY), p)
     return Scan(
         data=data,
@@ -219,16 +278,17 @@ def _scan_from_image(img: Any, p: Path, *, n_bytes: int) -> Scan:
         nucleus=nucleus,
         dims=dims,
         centre_ppm=centre,
-        te_s=optional_time_s(meta.get("EchoTime"), "EchoTime", p),
-        tr_s=optional_time_s(meta.get("RepetitionTime"), "RepetitionTime", p),
-        tm_s=optional_time_s(meta.get("MixingTime"), "MixingTime", p),
+        te_s=_time_s(meta, "EchoTime", p),
+        tr_s=_time_s(meta, "RepetitionTime", p),
+        tm_s=_time_s(meta, "MixingTime", p),
         sequence=normalise_sequence_name(seq_text),
         timings=timings,
-        protocol=str(protocol) if protocol is not None else None,
+        protocol=protocol,
         water_suppressed=water,
         dim_headers=dim_headers,
         header=meta,
         provenance=tuple(provenance),
+        affine=_affine(img),
         source=str(p),
         format="nifti-mrs",
     )
@@ -242,6 +302,79 @@ def _timings(raw: Any, p: Path) -> dict[str, Any]:
         raise InvalidInputError(
             f"{TIMINGS_HEADER_KEY} must be an object with a 'Value' object", p)
     return parse_timings(raw["Value"], where=p, what=TIMINGS_HEADER_KEY)
+
+
+#: How this format names the values of :data:`specproc.io._util.PHYSICAL_RANGES`.
+HEADER_KEYS: dict[str, str] = {
+    "te_s": "EchoTime",
+    "tr_s": "RepetitionTime",
+    "tm_s": "MixingTime",
+    "dwell_s": "the dwell time pixdim[4]",
+    "spectrometer_mhz": "SpectrometerFrequency",
+}
+
+
+def _time_s(meta: Mapping[str, Any], key: str, p: Path) -> float | None:
+    """A standard time key: a JSON number in seconds (the standard allows nothing else)."""
+    value = meta.get(key)
+    if value is None:
+        return None
+    if isinstance(value, str):
+        raise InvalidInputError(
+            f"{key} must be a number in seconds, got the text {value[:40]!r}", p
+        )
+    return optional_time_s(value, f"{key} (s)", p)
+
+
+def _optional_text(meta: Mapping[str, Any], key: str, p: Path) -> str | None:
+    value = meta.get(key)
+    if value is None:
+        return None
+    if isinstance(value, dict | list):
+        raise InvalidInputError(f"{key} must be text, got a JSON {type(value).__name__}", p)
+    return str(value)
+
+
+def _processing_applied(value: Any, p: Path) -> list[dict[str, Any]]:
+    """``ProcessingApplied``: a list of objects (``Details`` free text or an object)."""
+    if not isinstance(value, list) or not all(isinstance(r, dict) for r in value):
+        raise InvalidInputError("ProcessingApplied must be a list of objects", p)
+    records = []
+    for record in value:
+        record = dict(record)
+        for key in ("Time", "Program", "Version", "Method"):  # text in the standard
+            if key in record and not isinstance(record[key], str):
+                record[key] = json.dumps(record[key])[:200]
+        records.append(record)
+    return records
+
+
+def _intensity_scaling(img: Any) -> tuple[float, float] | None:
+    """(slope, intercept) nibabel applies to the samples, or ``None`` when it applies none."""
+    slope = float(getattr(img.dataobj, "slope", 1.0))
+    inter = float(getattr(img.dataobj, "inter", 0.0))
+    if slope == 1.0 and inter == 0.0:
+        return None
+    return slope, inter
+
+
+def _affine(img: Any) -> np.ndarray | None:
+    """The voxel-to-scanner affine (mm) when the header gives one (sform or qform)."""
+    hdr = img.header
+    if int(hdr["sform_code"]) == 0 and int(hdr["qform_code"]) == 0:
+        return None
+    affine = np.asarray(img.affine, dtype=float)
+    return affine if np.all(np.isfinite(affine)) else None
+
+
+def scaling_note(scan: Scan) -> str | None:
+    """A sentence for the user when the reader applied NIfTI intensity scaling, else ``None``."""
+    for record in scan.provenance:
+        if record.get("Method") == "intensity scaling" and record.get("Program") == "specproc":
+            details = record.get("Details") or {}
+            return (f"the samples were scaled by scl_slope = {details.get('scl_slope'):.6g} and "
+                    f"scl_inter = {details.get('scl_inter'):.6g} from the NIfTI header")
+    return None
 
 
 def _json_extension(hdr: Any, p: Path) -> dict[str, Any]:
@@ -346,10 +479,18 @@ def _dimension_tags(
 
 
 # ---------------------------------------------------------------------------------- writing
+def _is_user_entry(value: Any) -> bool:
+    return isinstance(value, Mapping) and "Description" in value
+
+
 def _json_header(scan: Scan) -> dict[str, Any]:
     meta: dict[str, Any] = dict(scan.header) if scan.format == "nifti-mrs" else {}
+    for key, value in list(meta.items()):  # bare user values of older files: wrap them
+        if key not in STANDARD_KEYS and not _is_user_entry(value):
+            meta[key] = user_key(value, "copied from the header of the input file")
     if scan.format not in (None, "nifti-mrs"):
-        meta["specproc_source_format"] = scan.format
+        meta["specproc_source_format"] = user_key(
+            scan.format, "format of the file the data were read from")
     for n in range(5, 8):  # dimension keys are rewritten from the Scan
         for key in (f"dim_{n}", f"dim_{n}_info", f"dim_{n}_header"):
             meta.pop(key, None)
@@ -372,7 +513,8 @@ def _json_header(scan: Scan) -> dict[str, Any]:
     if scan.water_suppressed is not None:
         meta["WaterSuppressed"] = bool(scan.water_suppressed)
     if scan.centre_ppm is not None:
-        meta["specproc_centre_ppm"] = scan.centre_ppm
+        meta["specproc_centre_ppm"] = user_key(
+            scan.centre_ppm, "chemical shift at the receiver centre frequency, ppm")
     else:
         meta.pop("specproc_centre_ppm", None)
     if scan.timings:
@@ -427,11 +569,13 @@ def write_nifti_mrs(scan: Scan, path: str | os.PathLike[str]) -> None:
         raise InvalidInputError(f"the header cannot be stored as JSON: {exc}", target) from None
     data = np.moveaxis(np.asarray(scan.data), -1, 0)  # (time, dim5, dim6, dim7)
     data = np.ascontiguousarray(data).reshape((1, 1, 1, *data.shape))
-    img = nib.Nifti2Image(data, affine=np.eye(4))
+    affine = np.eye(4) if scan.affine is None else np.asarray(scan.affine, dtype=float)
+    img = nib.Nifti2Image(data, affine=affine)
     hdr = img.header
     hdr.set_data_dtype(data.dtype)
     hdr.set_xyzt_units("mm", "sec")
-    zooms = [1.0, 1.0, 1.0, scan.dwell_s] + [1.0] * (data.ndim - 4)
+    voxel_mm = [float(v) for v in np.linalg.norm(affine[:3, :3], axis=0)]
+    zooms = [*voxel_mm, scan.dwell_s] + [1.0] * (data.ndim - 4)
     hdr.set_zooms(zooms)
     hdr.set_intent("none", name=INTENT_NAME)
     hdr.extensions.append(nib.nifti1.Nifti1Extension(EXTENSION_CODE, text.encode("utf-8")))

@@ -33,6 +33,7 @@ from __future__ import annotations
 import io
 import json
 import os
+import zipfile
 from pathlib import Path
 from typing import Any
 
@@ -40,7 +41,13 @@ import numpy as np
 
 from specproc.data import Scan
 from specproc.errors import InvalidInputError
-from specproc.io._util import check_options, optional_time_s, reader_boundary, require_file
+from specproc.io._util import (
+    check_declared_size,
+    check_options,
+    optional_time_s,
+    reader_boundary,
+    require_file,
+)
 
 __all__ = ["NPZ_KEYS", "is_zip_bytes", "read_npz", "write_npz"]
 
@@ -129,7 +136,10 @@ def read_npz(path: str | os.PathLike[str], *, conjugate: bool = False, **options
     p = require_file(path)
     check_options(options, (), "npz", p)
     with reader_boundary(p, "npz"):
-        with np.load(io.BytesIO(p.read_bytes()), allow_pickle=False) as archive:
+        raw = p.read_bytes()
+        with zipfile.ZipFile(io.BytesIO(raw)) as members:  # sizes before anything is inflated
+            check_declared_size(sum(m.file_size for m in members.infolist()), p, "npz archive")
+        with np.load(io.BytesIO(raw), allow_pickle=False) as archive:
             keys = set(archive.files)
             unknown = sorted(keys - set(NPZ_KEYS))
             if unknown:

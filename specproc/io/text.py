@@ -30,6 +30,7 @@ import numpy as np
 from specproc.data import Scan
 from specproc.errors import InvalidInputError
 from specproc.io._util import (
+    check_declared_size,
     check_options,
     merge_value,
     normalise_sequence_name,
@@ -112,6 +113,7 @@ def read_text(
     p = require_file(path)
     check_options(options, _KEYS, "text", p)
     with reader_boundary(p, "text"):
+        check_declared_size(p.stat().st_size, p, "text file")
         raw = p.read_bytes()
         if b"\x00" in raw:
             raise InvalidInputError(

@@ -231,8 +231,9 @@ def _skip(scan: Scan, method: str, note: str, notes: list[str]) -> Scan:
 
 def _last_record(scan: Scan, method: str) -> dict[str, Any] | None:
     for record in reversed(scan.provenance):
-        if record.get("Method") == method:
-            return record.get("Details", {})
+        details = record.get("Details", {})
+        if record.get("Method") == method and isinstance(details, dict):
+            return details
     return None
 
 

@@ -16,6 +16,8 @@ from typing import Any
 
 import numpy as np
 
+from specproc.data import user_value
+
 __all__ = [
     "CONCENTRATION_KINDS",
     "RESULT_COLUMNS",
@@ -262,11 +264,13 @@ def methods_rows(
     add(acq, "TE / TR", f"{_ms(scan.te_s)} / {_ms(scan.tr_s)}")
     if scan.tm_s is not None:
         add(acq, "TM", _ms(scan.tm_s))
-    if "VoxelSize_mm" in header:
-        add(acq, "voxel size", " x ".join(format_number(float(v)) for v in
-                                         header["VoxelSize_mm"]) + " mm")
-    if "VoxelLocation" in header:
-        add(acq, "voxel location", header["VoxelLocation"])
+    if scan.voxel_mm is not None:
+        add(acq, "voxel size", " x ".join(format_number(v) for v in scan.voxel_mm) + " mm")
+        add(acq, "voxel centre (scanner coordinates)",
+            ", ".join(format_number(v) for v in scan.voxel_position_mm) + " mm")
+    region = user_value(header, "specproc_voxel_region")
+    if region is not None:
+        add(acq, "voxel location", str(region))
     n_tr = qc.n_transients
     add(acq, "transients", "not known" if n_tr is None else n_tr)
     add(acq, "spectral width / points", f"{scan.spectral_width_hz:g} Hz / {scan.n_points}")
@@ -356,6 +360,8 @@ def processing_rows(provenance: Sequence[Mapping[str, Any]]) -> list[dict[str, s
     rows = []
     for k, record in enumerate(provenance, start=1):
         details = record.get("Details", {}) or {}
+        if not isinstance(details, Mapping):  # the standard's form: free text
+            details = {"details": " ".join(str(details).split())[:200]}
         parts = [t for t in (_detail_text(str(key), value) for key, value in details.items())
                  if t]
         rows.append({
