@@ -306,6 +306,84 @@ def test_sigkill_then_resume_matches_clean_run(reference, cohort: Path, tmp_path
     assert not list(target.rglob(".*.tmp*"))  # no temporary file left behind
 
 
+def _children(pid: int) -> set[int]:
+    """Live processes whose parent is ``pid`` (Linux /proc)."""
+    found = set()
+    for stat in Path("/proc").glob("[0-9]*/stat"):
+        try:
+            fields = stat.read_text().rsplit(")", 1)[1].split()
+        except (OSError, IndexError):
+            continue
+        if int(fields[1]) == pid and fields[0] != "Z":
+            found.add(int(stat.parent.name))
+    return found
+
+
+def _alive(pid: int) -> bool:
+    try:
+        state = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()[0]
+    except (OSError, IndexError):
+        return False
+    return state != "Z"  # a zombie has ended; only its exit status waits for a reaper
+
+
+@pytest.mark.slow
+@pytest.mark.skipif(not Path("/proc/self/stat").exists(), reason="needs Linux /proc")
+def test_killed_batch_leaves_no_live_worker(cohort: Path, tmp_path: Path,
+                                            cache_env: dict[str, str]) -> None:
+    """Issue 17 item 2: after kill -9 of a 2-worker batch, its workers end within 5 s."""
+    target = tmp_path / "orphans"
+    args = [sys.executable, "-c", "from specproc.cli import main; main()", "batch",
+            str(cohort), "-o", str(target), "--config", str(cohort / "fast.toml"),
+            "--metabolites", ",".join(MEMBERS), "--workers", "2", "--no-progress"]
+    # output to a file: orphaned workers would hold a pipe open
+    with open(tmp_path / "batch.log", "wb") as log:
+        proc = subprocess.Popen(args, env=cache_env, stdout=log, stderr=log)
+    deadline = time.monotonic() + 120
+    children: set[int] = set()
+    while len(children) < 3 and proc.poll() is None and time.monotonic() < deadline:
+        time.sleep(0.05)  # two workers and the resource tracker
+        children = _children(proc.pid)
+    assert len(children) >= 3, "the batch did not start its workers"
+    time.sleep(0.5)  # let the workers pick up scans
+    proc.send_signal(signal.SIGKILL)
+    killed = time.monotonic()
+    proc.wait()
+    try:
+        while any(_alive(pid) for pid in children) and time.monotonic() - killed < 10:
+            time.sleep(0.05)
+        elapsed = time.monotonic() - killed
+        assert not any(_alive(pid) for pid in children)
+        print(f"workers gone {elapsed:.2f} s after the kill")
+        assert elapsed < 5.0, f"workers outlived the batch by {elapsed:.1f} s"
+    finally:  # never leave an orphan behind, whatever the outcome
+        for pid in children:
+            if _alive(pid):
+                os.kill(pid, signal.SIGKILL)
+    # the folder is free again: a new batch may take it over (the flock died with the owner)
+    summary = _run(cohort, target, workers=1)
+    assert summary.n_scans == 6
+
+
+def test_second_batch_into_a_live_folder_is_refused(cohort: Path, tmp_path: Path) -> None:
+    """Issue 17 item 2: a lock file with the owner's pid keeps two batches apart."""
+    from specproc.batch.runner import LOCK_NAME, output_lock
+
+    target = tmp_path / "busy"
+    target.mkdir()
+    with output_lock(target):
+        assert f"pid {os.getpid()} on " in (target / LOCK_NAME).read_text()
+        with pytest.raises(InvalidInputError, match=rf"in use by another batch \(pid "
+                                                    rf"{os.getpid()} on .*\); wait"):
+            _run(cohort, target, workers=1)
+        result = CliRunner().invoke(main, ["batch", str(cohort), "-o", str(target),
+                                           "--no-progress"])
+        assert result.exit_code == 2
+        assert result.stderr.startswith(f"specproc: error: {target}: the output folder is in")
+    assert not (target / LOCK_NAME).exists()  # released and removed
+    assert not (target / "scans").exists()  # the refused batch wrote nothing
+
+
 def test_demo_study_manifest_and_folder_agree() -> None:
     from specproc._paths import demo_dir
 

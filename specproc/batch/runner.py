@@ -17,12 +17,22 @@ Flow of :func:`run_batch`:
    distributed cluster (``scheduler="tcp://host:port"``; the workers must see the same file
    system). At most a few tasks per worker are in flight, so memory stays flat.
 5. The cohort tables are rebuilt from the per-scan folders (:mod:`specproc.batch.cohort`).
+
+Faults: a batch holds ``OUTDIR/.specproc-batch.lock`` (an advisory ``flock`` that the system
+releases when the process dies, with the owner's pid inside), so a second batch into the same
+folder is refused while the first lives. Local workers die with their parent: on Linux the
+parent-death signal (``prctl(PR_SET_PDEATHSIG, SIGKILL)``), everywhere a watchdog thread that
+ends the worker within :data:`WATCHDOG_PERIOD_S` once its parent is gone.
 """
 
 from __future__ import annotations
 
 import contextlib
 import os
+import socket
+import sys
+import threading
+import time
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 from dataclasses import dataclass, field
@@ -42,8 +52,11 @@ from specproc.errors import InvalidInputError
 from specproc.protocol import Protocol
 
 __all__ = [
+    "LOCK_NAME",
+    "WATCHDOG_PERIOD_S",
     "BatchSummary",
     "config_sha256",
+    "output_lock",
     "run_batch",
 ]
 
@@ -168,13 +181,42 @@ class _InProcess(_Executor):
         return set(futures), set()
 
 
+#: How often a worker checks that its parent still lives, s.
+WATCHDOG_PERIOD_S: float = 0.5
+
+
+def _die_with_parent(parent_pid: int) -> None:
+    """Worker initialiser: end this process as soon as the batch process that started it dies.
+
+    Linux delivers SIGKILL on the parent's death (``prctl``); the watchdog thread covers other
+    systems and the moment before the signal was armed. Outputs are written atomically, so a
+    worker ended mid-scan leaves no partial file and the rerun does the scan again.
+    """
+    if sys.platform.startswith("linux"):
+        with contextlib.suppress(Exception):  # best effort; the watchdog remains
+            import ctypes
+            import signal
+
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(1, int(signal.SIGKILL), 0, 0, 0)  # 1 = PR_SET_PDEATHSIG
+
+    def watch() -> None:
+        while True:
+            if os.getppid() != parent_pid:
+                os._exit(70)  # EX_SOFTWARE: the batch is gone, nobody waits for the result
+            time.sleep(WATCHDOG_PERIOD_S)
+
+    threading.Thread(target=watch, name="specproc-parent-watchdog", daemon=True).start()
+
+
 class _LocalPool(_Executor):
     def __init__(self, workers: int) -> None:
         import multiprocessing
 
         self.capacity = 2 * workers
         self.pool = ProcessPoolExecutor(
-            max_workers=workers, mp_context=multiprocessing.get_context("spawn")
+            max_workers=workers, mp_context=multiprocessing.get_context("spawn"),
+            initializer=_die_with_parent, initargs=(os.getpid(),),
         )
 
     def submit(self, fn: Callable[[Any], Any], arg: Any) -> Any:
@@ -361,6 +403,66 @@ def _progress(total: int, enabled: bool) -> tuple[Callable[[str], None], Callabl
     return advance, bar.stop
 
 
+#: Name of the lock file a running batch keeps in its output folder.
+LOCK_NAME: str = ".specproc-batch.lock"
+
+
+def _lock_owner(path: Path) -> str:
+    try:
+        text = path.read_text("utf-8").strip()
+    except OSError:
+        return "another batch"
+    return f"another batch ({text[:120]})" if text else "another batch"
+
+
+@contextlib.contextmanager
+def output_lock(out: Path) -> Iterator[Path]:
+    """Hold ``out/.specproc-batch.lock`` for the duration of the block.
+
+    The lock is an advisory ``flock`` on the file, which the system releases when the process
+    ends in any way (so a killed batch never leaves a stale lock); the file records the
+    owner's pid, host and start time for the message a second batch gets.
+
+    Raises
+    ------
+    InvalidInputError
+        When a live batch holds the lock, naming the folder and the owner.
+    """
+    path = out / LOCK_NAME
+    try:
+        import fcntl
+    except ImportError:  # no flock (Windows): run unlocked
+        yield path
+        return
+    while True:
+        fd = os.open(path, os.O_RDWR | os.O_CREAT, 0o644)
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except OSError:
+            os.close(fd)
+            raise InvalidInputError(
+                f"the output folder is in use by {_lock_owner(path)}; wait for it to finish "
+                "or choose another folder",
+                out,
+            ) from None
+        try:  # the file may have been removed and made anew between open and flock
+            same = os.fstat(fd).st_ino == os.stat(path).st_ino
+        except FileNotFoundError:
+            same = False
+        if same:
+            break
+        os.close(fd)
+    try:
+        stamp = time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime())
+        os.ftruncate(fd, 0)
+        os.write(fd, f"pid {os.getpid()} on {socket.gethostname()} since {stamp}\n".encode())
+        yield path
+    finally:
+        with contextlib.suppress(OSError):
+            os.unlink(path)
+        os.close(fd)
+
+
 def scan_folder(out_dir: Path, key: str) -> Path:
     """Output folder of one scan: ``OUTDIR/scans/<key>``."""
     return out_dir / "scans" / key
@@ -433,6 +535,24 @@ def run_batch(
         from specproc.spins.systems import load_metabolites
 
         load_metabolites(list(metabolites))  # unknown names: one clear error before any work
+    with output_lock(out):
+        _run_entries(entries, out, cfg, summary, workers=workers, scheduler=scheduler,
+                     metabolites=metabolites, macromolecules=macromolecules,
+                     retry_failed=retry_failed, progress=progress, config_hash=config_hash)
+        counts = write_cohort(entries, out, title=title, qc_config=cfg.get("qc"))
+    summary.n_failed = counts["failed"]
+    summary.n_flagged = counts["flagged"]
+    summary.failures = counts["failures"]
+    summary.tables = {name: out / name for name in ("cohort.tsv", "cohort_qc.tsv",
+                                                    "cohort.html")}
+    return summary
+
+
+def _run_entries(entries: Sequence[ScanEntry], out: Path, cfg: dict[str, Any],
+                 summary: BatchSummary, *, workers: int, scheduler: str | None,
+                 metabolites: Sequence[str] | None, macromolecules: bool | None,
+                 retry_failed: bool, progress: bool, config_hash: str) -> None:
+    """Prepare, skip or submit every entry and wait for the workers (the lock is held)."""
     advance, stop = _progress(len(entries), progress)
     runner = _Dispatcher(workers, scheduler, summary, advance)
     bases: dict[str, Path | str] = {}
@@ -480,10 +600,3 @@ def run_batch(
     finally:
         runner.close()
         stop()
-    counts = write_cohort(entries, out, title=title, qc_config=cfg.get("qc"))
-    summary.n_failed = counts["failed"]
-    summary.n_flagged = counts["flagged"]
-    summary.failures = counts["failures"]
-    summary.tables = {name: out / name for name in ("cohort.tsv", "cohort_qc.tsv",
-                                                    "cohort.html")}
-    return summary
