@@ -158,6 +158,12 @@ def test_manifest_reads_relative_paths_and_overrides(cohort: Path, tmp_path: Pat
         ("scan\tsubject\nmissing_svs.nii.gz\t01\n", "line 2: the scan file 'missing_svs.nii.gz'"),
         ("scan\tgm\twm\n{good}\t0.5\t0.5\n", "line 2: give all of gm, wm and csf"),
         ("scan\tte_ms\n{good}\tthirty\n", "line 2: column te_ms is not a number"),
+        # issue 17 item 7: identifiers that clean to nothing or collide ignoring case
+        ("scan\tscan_id\n{good}\t..\n", "line 2: scan_id '..' has no letter or digit"),
+        ("scan\tscan_id\n{good}\t.\n", "line 2: scan_id '.' has no letter or digit"),
+        ("scan\tscan_id\n{good}\t-\n", "line 2: scan_id '-' has no letter or digit"),
+        ("scan\tscan_id\n{good}\tA1\n{good}\ta1\n",
+         "identifiers differing only in case 'A1', 'a1'"),
     ],
 )
 def test_manifest_errors_one_line_exit_2(cohort: Path, tmp_path: Path, text: str,

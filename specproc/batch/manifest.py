@@ -66,6 +66,7 @@ from specproc.errors import InvalidInputError
 __all__ = [
     "MANIFEST_COLUMNS",
     "ScanEntry",
+    "clean_scan_id",
     "discover_bids",
     "ignored_columns",
     "read_entries",
@@ -167,6 +168,25 @@ def scan_key(*, subject: str = "", session: str = "", scan_label: str) -> str:
     return key
 
 
+def clean_scan_id(raw: str, line: int, where: Path) -> str:
+    """A manifest's ``scan_id`` as a folder name: unsafe characters as ``-``, no leading or
+    trailing ``-`` or ``.``.
+
+    Raises
+    ------
+    InvalidInputError
+        When nothing usable is left (``..``, ``.``, ``-``, only symbols): such a name would
+        write into ``OUTDIR/scans/`` itself.
+    """
+    key = _SAFE.sub("-", raw).strip("-.")
+    if not key:
+        raise InvalidInputError(
+            f"line {line}: scan_id {raw[:40]!r} has no letter or digit to name a folder with",
+            where,
+        )
+    return key
+
+
 def _blank(value: str | None) -> bool:
     return value is None or value.strip() == "" or value.strip().lower() == "n/a"
 
@@ -246,7 +266,8 @@ def read_manifest(path: str | os.PathLike[str]) -> list[ScanEntry]:
     InvalidInputError
         Naming the manifest and the line for: a missing ``scan`` column, a
         file that does not exist, a bad number, incomplete or invalid tissue fractions, a
-        repeated key, or no rows.
+        repeated key (also one differing only in case), a ``scan_id`` with no letter or
+        digit, or no rows.
     """
     where = Path(path)
     if not where.is_file():
@@ -311,7 +332,7 @@ def read_manifest(path: str | os.PathLike[str]) -> list[ScanEntry]:
             timings["delays_s"] = tuple(_number(c, "delays_ms", line, where) / 1e3
                                         for c in cells)
         key = row.get("scan_id", "").strip()
-        key = _SAFE.sub("-", key).strip("-.") if key else scan_key(
+        key = clean_scan_id(key, line, where) if key else scan_key(
             subject=subject, session=session, scan_label=row["scan"].strip()
         )
         entries.append(ScanEntry(
@@ -327,10 +348,12 @@ def read_manifest(path: str | os.PathLike[str]) -> list[ScanEntry]:
 
 def _sorted_unique(entries: list[ScanEntry], where: Path) -> list[ScanEntry]:
     entries = sorted(entries, key=lambda e: e.key)
-    for a, b in itertools.pairwise(entries):
-        if a.key == b.key:
+    # identifiers are folder names: unique even on file systems that ignore case
+    for a, b in itertools.pairwise(sorted(entries, key=lambda e: (e.key.casefold(), e.key))):
+        if a.key.casefold() == b.key.casefold():
+            same = "the identifier" if a.key == b.key else "identifiers differing only in case"
             raise InvalidInputError(
-                f"two scans get the identifier {a.key!r} ({a.scan_label}, {b.scan_label}); "
+                f"two scans get {same} {a.key!r}, {b.key!r} ({a.scan_label}, {b.scan_label}); "
                 "add a scan_id column with unique values",
                 where,
             )

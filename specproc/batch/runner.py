@@ -525,9 +525,9 @@ def run_batch(
     if metabolites is None:
         members = list((cfg.get("fit") or {}).get("members") or [])
         metabolites = members or None
-    keys = [e.key for e in entries]
-    if len(set(keys)) != len(keys):
-        raise InvalidInputError("scan identifiers are not unique")
+    keys = [e.key.casefold() for e in entries]
+    if len(set(keys)) != len(keys) or not all(keys):
+        raise InvalidInputError("scan identifiers are not unique (ignoring case) or empty")
     entries = sorted(entries, key=lambda e: e.key)
     summary = BatchSummary(n_scans=len(entries), out_dir=out)
     config_hash = config_sha256(cfg)
