@@ -52,6 +52,9 @@ _REFERENCES = ("median", "mean")
 TRANSIENT_AXIS = "DIM_DYN"
 #: Floor of the outlier-score scale, as a fraction of the median residual (common practice).
 MIN_RELATIVE_SCALE = 0.05
+#: Transients whose first-pass residual has a robust z-score above this are left out of the
+#: mean reference of later passes (a spike or a corrupt transient would dominate the mean).
+_REFERENCE_Z_LIMIT = 10.0
 
 
 @dataclass(frozen=True)
@@ -185,9 +188,14 @@ def register_transients(
     -------
     RegistrationResult
     """
-    data = np.asarray(fids)
-    if data.ndim != 2:
-        raise InvalidInputError(f"registration needs (transients, points) data, got {data.shape}")
+    raw = np.asarray(fids)
+    if raw.ndim != 2:
+        raise InvalidInputError(f"registration needs (transients, points) data, got {raw.shape}")
+    # the fit runs in float64 on data scaled so that the median transient peaks at 1: samples
+    # near the float32 limit (3e38) in one transient, or every sample scaled by 1e300, neither
+    # overflow nor swamp the others
+    scale = _magnitude_scale(raw)
+    data = raw.astype(np.complex128) / scale
     n_tr, n_pts = data.shape
     where: dict[str, Any] = {"dwell_s": dwell_s, "spectrometer_mhz": spectrometer_mhz,
              "centre_ppm": centre_ppm, "window_ppm": window_ppm}
@@ -205,6 +213,7 @@ def register_transients(
             raise InvalidInputError(
                 f"the reference FID has shape {ref_fid.shape}, expected ({n_pts},)"
             )
+        ref_fid = ref_fid / scale
         n_passes = 1
     else:
         ref_fid = _robust_reference(data, str(reference))
@@ -213,8 +222,11 @@ def register_transients(
     phases = np.zeros(n_tr)
     rms = np.zeros(n_tr)
     for k in range(n_passes):
-        if k > 0:
-            ref_fid = apply_registration(data, shifts, np.degrees(phases), dwell_s).mean(axis=0)
+        if k > 0:  # mean of the aligned transients, leaving out gross outliers (spikes)
+            keep = robust_z_scores(rms, min_scale=MIN_RELATIVE_SCALE * float(np.median(rms)))
+            keep = keep <= _REFERENCE_Z_LIMIT
+            ref_fid = apply_registration(data[keep], shifts[keep], np.degrees(phases[keep]),
+                                         dwell_s).mean(axis=0)
         ref_filtered = window_filter(ref_fid, **where)[:n_fit]
         if not np.any(np.abs(ref_filtered) > 0):
             raise InvalidInputError("the registration reference has no signal in the window")
@@ -223,9 +235,21 @@ def register_transients(
                 filtered[j, :n_fit], ref_filtered, t, grid, kernel
             )
     return RegistrationResult(
-        shifts_hz=shifts, phases_deg=np.degrees(phases), residuals=rms, reference=ref_fid,
-        passes=n_passes,
+        shifts_hz=shifts, phases_deg=np.degrees(phases), residuals=rms * scale,
+        reference=ref_fid * scale, passes=n_passes,
     )
+
+
+def _magnitude_scale(data: np.ndarray) -> float:
+    """Largest magnitude of the element-wise median transient (float64; robust to one spike),
+    or of any sample when that median is zero: the scale the registration divides by."""
+    wide = data.astype(np.complex128)
+    for candidate in (_robust_reference(wide, "median"), wide):
+        parts = np.abs(np.concatenate([candidate.real.ravel(), candidate.imag.ravel()]))
+        scale = float(parts.max()) if parts.size else 0.0
+        if np.isfinite(scale) and scale > 0:
+            return scale
+    raise InvalidInputError("the transients hold no signal (every sample is zero)")
 
 
 def apply_registration(
@@ -282,7 +306,9 @@ def outlier_scores(
     -------
     residuals, scores : (n_transients,) ndarray
     """
-    data = np.asarray(fids)
+    raw = np.asarray(fids)
+    scale = _magnitude_scale(raw)  # float64 and scaled, as in the registration
+    data = raw.astype(np.complex128) / scale
     n_pts = data.shape[-1]
     filtered = window_filter(data, dwell_s=dwell_s, spectrometer_mhz=spectrometer_mhz,
                              centre_ppm=centre_ppm, window_ppm=window_ppm)
@@ -291,7 +317,7 @@ def outlier_scores(
     ref = _robust_reference(filtered, "median")
     residuals = np.sqrt(np.mean(np.abs(filtered - ref) ** 2, axis=-1))
     floor = MIN_RELATIVE_SCALE * float(np.median(residuals))
-    return residuals, robust_z_scores(residuals, min_scale=floor)
+    return residuals * scale, robust_z_scores(residuals, min_scale=floor)
 
 
 def _transients(scan: Scan) -> np.ndarray:
