@@ -135,7 +135,7 @@ def _leading_left_vectors(x: np.ndarray, rows: int, order: int, solver: str) -> 
             values, vectors = scipy.sparse.linalg.eigsh(
                 _HankelGram(x, rows), k=order, which="LM", v0=start, tol=_LANCZOS_TOL
             )
-        except scipy.sparse.linalg.ArpackNoConvergence:
+        except (scipy.sparse.linalg.ArpackNoConvergence, scipy.sparse.linalg.ArpackError):
             pass  # fall back to the dense SVD below
         else:
             return vectors[:, np.argsort(-np.real(values))]
@@ -191,6 +191,10 @@ def hlsvd(
         raise InvalidInputError(
             f"the HLSVD solver must be one of {', '.join(HLSVD_SOLVERS)}, got {solver!r}"
         )
+    # poles do not depend on the scale: work on the FID scaled to a largest magnitude of 1, so
+    # that samples near the float limits neither overflow nor underflow the products
+    scale = float(np.max(np.maximum(np.abs(x.real[:n]), np.abs(x.imag[:n]))))
+    x = x / scale
     uk = _leading_left_vectors(x[:n], rows, order, solver)
     z_matrix, *_ = np.linalg.lstsq(uk[:-1], uk[1:], rcond=None)
     poles = np.linalg.eigvals(z_matrix)
@@ -201,7 +205,7 @@ def hlsvd(
     basis = np.exp(np.outer(np.arange(n) * dwell_s, log_poles))
     amplitude, *_ = np.linalg.lstsq(basis, x[:n], rcond=None)
     order_idx = np.argsort(freq_hz)
-    return DampedSinusoids(freq_hz[order_idx], lw_hz[order_idx], amplitude[order_idx])
+    return DampedSinusoids(freq_hz[order_idx], lw_hz[order_idx], amplitude[order_idx] * scale)
 
 
 def remove_water(
