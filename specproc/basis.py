@@ -128,6 +128,13 @@ class BasisSet:
     metadata: Mapping[str, Any] = field(default_factory=dict)
     lines: tuple[LineList | None, ...] | None = None
 
+    def __repr__(self) -> str:
+        names = ", ".join(self.names[:8]) + (", ..." if len(self.names) > 8 else "")
+        timings = ", ".join(f"{k}={v * 1e3:g} ms" for k, v in self.timings_s.items())
+        return (f"BasisSet({len(self.names)} members [{names}]; {self.sequence} {timings}; "
+                f"{self.spectrometer_mhz:.4g} MHz, {self.n_points} points at "
+                f"{self.dwell_s * 1e6:.4g} us)")
+
     def __post_init__(self) -> None:
         fids = np.array(self.fids, dtype=np.complex128, copy=True)
         names = tuple(str(n) for n in self.names)

@@ -123,6 +123,9 @@ def test_averaged_scan_without_water_gives_ratios_only(tmp_path: Path) -> None:
     assert result.title == "avg"
     text = repr(result)
     assert text.startswith("ScanResult('avg'") and len(text) < 400
+    # compact reprs of the parts too (printing them used to write 100 KB)
+    assert len(repr(result.fit)) < 300 and repr(result.fit).startswith("FitResult(NAA=")
+    assert len(repr(basis)) < 300 and "3 members [NAA, Cr, PCh]" in repr(basis)
     assert "<table>" in result._repr_html_()
     with pytest.raises(dataclasses.FrozenInstanceError):
         result.title = "other"  # type: ignore[misc]

@@ -18,6 +18,9 @@ import pytest
 
 from specproc._paths import demo_dir
 
+#: Integration tests: the whole command line on real files.
+pytestmark = pytest.mark.slow
+
 DEMO = demo_dir()
 TRUTH = json.loads((DEMO / "truth.json").read_text(encoding="utf-8"))
 #: truth keyed like the cohort's scan_id (the file stem of the scan)

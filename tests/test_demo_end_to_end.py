@@ -28,6 +28,9 @@ from click.testing import CliRunner
 from specproc._paths import demo_dir
 from specproc.cli import main
 
+#: Integration tests: the whole command line on real files.
+pytestmark = pytest.mark.slow
+
 DEMO = demo_dir()
 TRUTH = json.loads((DEMO / "truth.json").read_text(encoding="utf-8"))
 SCANS = {f"{s['subject']}_{s['session']}": s for s in TRUTH["scans"]}

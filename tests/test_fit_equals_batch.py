@@ -22,6 +22,9 @@ from specproc.constants import larmor_mhz
 from specproc.data import Scan
 from specproc.io import save
 
+#: Integration tests: the whole command line on real files.
+pytestmark = pytest.mark.slow
+
 MEMBERS = ["NAA", "Cr", "PCh"]
 DWELL = 1 / 2000
 N = 1024

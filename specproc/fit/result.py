@@ -177,6 +177,13 @@ class FitResult:
         """JSON-able dict (see :func:`result_to_dict`)."""
         return result_to_dict(self)
 
+    def __repr__(self) -> str:
+        shown = ", ".join(f"{n}={float(a):.4g}" for n, a in zip(self.names[:6], self.amplitudes,
+                                                              strict=False))
+        more = f", ... ({len(self.names)} members)" if len(self.names) > 6 else ""
+        return (f"FitResult({shown}{more}; success={bool(self.success)}, "
+                f"flags={list(self.flags)})")
+
 
 # ---------------------------------------------------------------------- tables
 def results_table(result: FitResult) -> list[dict[str, Any]]:
