@@ -124,3 +124,22 @@ def test_fit_rejects_a_bad_timing_option_in_one_line(tmp_path):
     lines = [ln for ln in res.output.splitlines() if ln.strip()]
     assert len(lines) == 1 and "TE1" in lines[0]
     assert not (tmp_path / "o").exists()
+
+
+def test_manifest_timing_columns_reach_the_protocol(tmp_path):
+    from specproc.batch import read_manifest
+
+    save(_scan(data=np.ones(256, complex)), tmp_path / "a.nii.gz")
+    save(_scan(data=np.ones(256, complex), sequence="semi-laser", te_s=0.04),
+         tmp_path / "b.nii.gz")
+    (tmp_path / "m.tsv").write_text(
+        "scan\tte1_ms\tdelays_ms\n"
+        "a.nii.gz\t12\t\n"
+        "b.nii.gz\t\t4;10;8;10;8\n", "utf-8")
+    a, b = read_manifest(tmp_path / "m.tsv")
+    assert a.timings == {"te1_s": pytest.approx(0.012)}
+    assert b.timings["delays_s"] == pytest.approx((0.004, 0.010, 0.008, 0.010, 0.008))
+    p = resolve_protocol(load(a.scan_path), manifest=a.timings)
+    assert (p.te1_s, p.timing_sources) == (pytest.approx(0.012), {"te1_s": "manifest"})
+    p = resolve_protocol(load(b.scan_path), manifest=b.timings)
+    assert p.timing_sources == {"delays_s": "manifest"}
