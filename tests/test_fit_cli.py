@@ -124,3 +124,13 @@ def test_bad_inputs_give_one_line_and_exit_2(files, tmp_path, case, args, messag
     assert len(lines) == 1 and lines[0].startswith("specproc: error:")
     assert message in lines[0]
     assert not out.exists() or not any(out.iterdir())
+
+
+def test_incomplete_tissue_fractions_give_one_line_and_exit_2(files, tmp_path):
+    out = tmp_path / "tissue"
+    res = CliRunner().invoke(main, ["fit", str(files / "one.nii.gz"), "--basis",
+                                    str(files / "basis.npz"), "--gm", "0.6", "-o", str(out)])
+    assert res.exit_code == 2
+    lines = [ln for ln in res.output.splitlines() if ln.strip()]
+    assert len(lines) == 1 and "--gm, --wm and --csf" in lines[0]
+    assert not out.exists()
