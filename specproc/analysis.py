@@ -181,7 +181,7 @@ class ScanResult:
     fit : FitResult
         :func:`specproc.fit.fit_spectrum` outcome.
     water_info : dict or None
-        How the water signal S_W was measured (:func:`specproc.quantify.water_amplitude`).
+        How the water signal S_W was measured (:meth:`specproc.quantify.WaterSignal.measure`).
     quantification : Quantification
         Ratios, and with water and tissue fractions water-referenced concentrations.
     qc : QCReport
@@ -485,7 +485,13 @@ def analyse_scan(
     from specproc.preprocess.pipeline import run_pipeline
     from specproc.protocol import resolve_protocol
     from specproc.qc import QCThresholds, qc_from_scan
-    from specproc.quantify import quantify, validate_tissue_fractions, water_amplitude
+    from specproc.quantify import (
+        Acquisition,
+        Amplitudes,
+        WaterSignal,
+        quantify,
+        validate_tissue_fractions,
+    )
 
     start = time.perf_counter()
     scan = _as_scan(scan, "scan")
@@ -522,28 +528,22 @@ def analyse_scan(
     fit = fit_spectrum(pre.scan, used_basis, config=cfg)
 
     # ---- quantification
-    amplitudes = dict(zip(fit.names, (float(a) for a in fit.amplitudes), strict=True))
-    protons = {n: float(p) for n, p in zip(used_basis.names, used_basis.protons, strict=True)}
     water_info: dict[str, Any] | None = None
-    quant_kwargs: dict[str, Any] = {}
+    water_signal = None
     if pre.water is not None and tissue_fractions is not None:
         if pre.scan.te_s is None or pre.scan.tr_s is None:
             raise InvalidInputError(
                 "water-referenced concentrations need the scan's TE and TR", scan.source)
-        s_w, s_w_sd, water_info = water_amplitude(pre.water)
-        quant_kwargs = dict(
-            water_amplitude=s_w, water_amplitude_sd=s_w_sd, water_proton_normalised=False,
-            volume_fractions=tissue_fractions, te_s=pre.scan.te_s, tr_s=pre.scan.tr_s,
-            water_te_s=pre.water.te_s, water_tr_s=pre.water.tr_s, field_t=pre.scan.field_t,
-            relaxation_overrides=relaxation_overrides,
-        )
+        water_signal = WaterSignal.measure(pre.water)
+        water_info = dict(water_signal.details)
     elif pre.water is not None:
         notes.append("a water reference was given but no tissue fractions: ratios only")
     elif tissue_fractions is not None:
         notes.append("tissue fractions were given but no water reference: ratios only")
     quant = quantify(
-        amplitudes, names=list(fit.names), covariance=fit.covariance, protons=protons,
-        proton_normalised=True, **quant_kwargs,
+        Amplitudes.from_fit(fit, used_basis), water=water_signal,
+        tissue=None if water_signal is None else tissue_fractions,
+        acquisition=Acquisition.from_scan(pre.scan), relaxation=relaxation_overrides,
     )
     if pre.water is not None and not quant.water_referenced:
         quant = dataclasses.replace(

@@ -26,8 +26,12 @@ from specproc.quantify import (
     NO_WATER_STATEMENT,
     RELAXATION_FILE,
     TISSUE_WATER_CONTENT,
+    Acquisition,
+    Amplitudes,
     Relaxation,
     RelaxationTimes,
+    Tissue,
+    WaterSignal,
     combine_linear,
     concentration_factors,
     load_relaxation_times,
@@ -127,12 +131,10 @@ def test_water_scaling_reproduces_hand_worked_gasparovic_example():
         "csf": Relaxation(t1_csf, t2_csf),
     }
     result = quantify(
-        {"NAA": s_m, "Cr": 2.0e3},
-        protons={"NAA": 3, "Cr": 3},
-        water_amplitude=s_w,
-        volume_fractions={"GM": f_gm, "WM": f_wm, "CSF": f_csf},
-        te_s=te,
-        tr_s=tr,
+        Amplitudes.from_mapping({"NAA": s_m, "Cr": 2.0e3}, protons={"NAA": 3, "Cr": 3}),
+        water=WaterSignal(s_w),
+        tissue={"GM": f_gm, "WM": f_wm, "CSF": f_csf},
+        acquisition=Acquisition(te, tr),
         relaxation=_table(water, {"NAA": Relaxation(t1_m, t2_m), "Cr": Relaxation(1.35, 0.15)}),
     )
     assert result.conc_molal_mmol_kg["NAA"] == pytest.approx(molal, rel=1e-12)
@@ -155,12 +157,10 @@ def test_pure_grey_matter_without_relaxation():
     #   molar = (S_M/S_W)(2/N_M) * 55.51 M * d_GM; molal = (S_M/S_W)(2/N_M) * 55.51 mol/kg
     water = {t: NO_RELAX for t in ("gm", "wm", "csf")}
     res = quantify(
-        {"Cr": 1.0e3, "PCr": 5.0e2},
-        protons={"Cr": 3, "PCr": 3},
-        water_amplitude=1.0e7,
-        volume_fractions={"gm": 1.0, "wm": 0.0, "csf": 0.0},
-        te_s=0.03,
-        tr_s=2.0,
+        Amplitudes.from_mapping({"Cr": 1.0e3, "PCr": 5.0e2}, protons={"Cr": 3, "PCr": 3}),
+        water=WaterSignal(1.0e7),
+        tissue={"gm": 1.0, "wm": 0.0, "csf": 0.0},
+        acquisition=Acquisition(0.03, 2.0),
         relaxation=_table(water, {"Cr": NO_RELAX, "PCr": NO_RELAX}),
     )
     expected_molar = (1.0e3 / 1.0e7) * (2 / 3) * 55510.0 * 0.78
@@ -179,14 +179,11 @@ def test_csf_fraction_scales_molar_result_as_one_over_one_minus_fcsf(f_csf):
     water = {t: NO_RELAX for t in ("gm", "wm", "csf")}
     fractions = {"gm": 0.6 * (1 - f_csf), "wm": 0.4 * (1 - f_csf), "csf": f_csf}
     res = quantify(
-        {"NAA": 2.0e3},
-        protons={"NAA": 3},
-        water_amplitude=1.0e7,
-        volume_fractions=fractions,
-        te_s=0.0,
-        tr_s=INF,
+        Amplitudes.from_mapping({"NAA": 2.0e3}, protons={"NAA": 3}),
+        water=WaterSignal(1.0e7),
+        tissue=Tissue(fractions, water_content={"gm": d, "wm": d, "csf": d}),
+        acquisition=Acquisition(0.0, INF),
         relaxation=_table(water, {"NAA": NO_RELAX}),
-        water_content={"gm": d, "wm": d, "csf": d},
         reference="NAA",
     )
     base = (2.0e3 / 1.0e7) * (2 / 3) * 55510.0 * d
@@ -203,8 +200,9 @@ def test_csf_with_default_water_contents_follows_the_formula():
     for f_csf in (0.0, 0.2, 0.4):
         f = {"gm": 0.7 * (1 - f_csf), "wm": 0.3 * (1 - f_csf), "csf": f_csf}
         res = quantify(
-            {"NAA": 1.0}, protons={"NAA": 3}, water_amplitude=1.0, volume_fractions=f,
-            te_s=0.0, tr_s=INF, relaxation=_table(water, {"NAA": NO_RELAX}), reference="NAA",
+            Amplitudes.from_mapping({"NAA": 1.0}, protons={"NAA": 3}), water=WaterSignal(1.0),
+            tissue=f, acquisition=Acquisition(0.0, INF),
+            relaxation=_table(water, {"NAA": NO_RELAX}), reference="NAA",
         )
         fd = f["gm"] * 0.78 + f["wm"] * 0.65 + f["csf"] * 0.97
         values.append(res.conc_molar_mm["NAA"] * (1 - f_csf) / fd)
@@ -216,12 +214,14 @@ def test_proton_normalised_amplitudes_give_the_same_concentrations():
     water = {"gm": Relaxation(1.3, 0.1), "wm": Relaxation(0.8, 0.08), "csf": Relaxation(4, 0.5)}
     metab = {"NAA": Relaxation(1.4, 0.25), "Cr": Relaxation(1.35, 0.15)}
     common = dict(
-        water_amplitude=4.0e6, volume_fractions={"gm": 0.5, "wm": 0.4, "csf": 0.1},
-        te_s=0.03, tr_s=2.0, relaxation=_table(water, metab),
+        water=WaterSignal(4.0e6), tissue={"gm": 0.5, "wm": 0.4, "csf": 0.1},
+        acquisition=Acquisition(0.03, 2.0), relaxation=_table(water, metab),
     )
     # signal areas S = A_per_proton * N
-    signals = quantify({"NAA": 3 * 10.0, "Cr": 5 * 8.0}, protons={"NAA": 3, "Cr": 5}, **common)
-    per_proton = quantify({"NAA": 10.0, "Cr": 8.0}, proton_normalised=True, **common)
+    signals = quantify(Amplitudes.from_mapping({"NAA": 3 * 10.0, "Cr": 5 * 8.0},
+                                               protons={"NAA": 3, "Cr": 5}), **common)
+    per_proton = quantify(Amplitudes.from_mapping({"NAA": 10.0, "Cr": 8.0}, per_molecule=True),
+                          **common)
     for name in ("NAA", "Cr", "tCr"):
         assert signals.conc_molar_mm[name] == pytest.approx(per_proton.conc_molar_mm[name])
         assert signals.ratios[name] == pytest.approx(per_proton.ratios[name])
@@ -229,8 +229,7 @@ def test_proton_normalised_amplitudes_give_the_same_concentrations():
     assert per_proton.ratios["NAA"] == pytest.approx(10.0 / 8.0)
     # water amplitude per proton: S_W = 2 * A_W
     half = quantify(
-        {"NAA": 10.0, "Cr": 8.0}, proton_normalised=True, water_proton_normalised=True,
-        **(common | {"water_amplitude": 2.0e6}),
+        {"NAA": 10.0, "Cr": 8.0}, **(common | {"water": WaterSignal(2.0e6, per_proton=True)}),
     )
     assert half.conc_molar_mm["NAA"] == pytest.approx(per_proton.conc_molar_mm["NAA"])
 
@@ -296,9 +295,8 @@ def test_sum_and_ratio_sd_agree_with_monte_carlo():
     mean = np.array([8.0, 4.0, 10.0])
     cov = np.array([[0.25, -0.12, 0.02], [-0.12, 0.16, 0.0], [0.02, 0.0, 0.3]])
     draws = rng.multivariate_normal(mean, cov, size=200_000)
-    res = quantify(
-        dict(zip(["Cr", "PCr", "NAA"], mean, strict=True)), covariance=cov, proton_normalised=True
-    )
+    res = quantify(Amplitudes.from_mapping(dict(zip(["Cr", "PCr", "NAA"], mean, strict=True)),
+                                           covariance=cov, per_molecule=True))
     # sum: sample SD of Cr + PCr
     assert res.amplitude_sd["tCr"] == pytest.approx(np.std(draws[:, 0] + draws[:, 1]), rel=0.01)
     # ratio NAA/tCr and Cr/tCr: delta method against the sample SD (small relative errors)
@@ -318,9 +316,11 @@ def test_concentration_sd_propagates_covariance():
     water = {t: NO_RELAX for t in ("gm", "wm", "csf")}
     cov = np.array([[4.0, -1.0], [-1.0, 1.0]])
     res = quantify(
-        {"Glu": 100.0, "Gln": 30.0}, covariance=cov, protons={"Glu": 5, "Gln": 5},
-        water_amplitude=1.0e6, volume_fractions={"gm": 1, "wm": 0, "csf": 0}, te_s=0.0,
-        tr_s=INF, relaxation=_table(water, {"Glu": NO_RELAX, "Gln": NO_RELAX}), reference="Glu",
+        Amplitudes.from_mapping({"Glu": 100.0, "Gln": 30.0}, covariance=cov,
+                                protons={"Glu": 5, "Gln": 5}),
+        water=WaterSignal(1.0e6), tissue={"gm": 1, "wm": 0, "csf": 0},
+        acquisition=Acquisition(0.0, INF),
+        relaxation=_table(water, {"Glu": NO_RELAX, "Gln": NO_RELAX}), reference="Glu",
     )
     k = (2 / 5) / 1.0e6 * 55510.0 * 0.78  # per-amplitude factor, pure GM, no relaxation
     assert res.conc_molar_mm["Glx"] == pytest.approx(130.0 * k)
@@ -331,11 +331,11 @@ def test_concentration_sd_propagates_covariance():
 
 # ---------------------------------------------------------------------- no water reference
 def test_no_water_reference_gives_ratios_only():
-    res = quantify(
+    res = quantify(Amplitudes.from_mapping(
         {"NAA": 12.0, "NAAG": 1.0, "Cr": 6.0, "PCr": 2.0, "GPC": 1.0, "PCh": 0.6},
-        proton_normalised=True,
-        amplitude_sd=[0.5, 0.4, 0.3, 0.3, 0.1, 0.1],
-    )
+        per_molecule=True,
+        sd=[0.5, 0.4, 0.3, 0.3, 0.1, 0.1],
+    ))
     assert res.statement == NO_WATER_STATEMENT == "no water reference: ratios to tCr only"
     assert not res.water_referenced
     assert res.conc_molar_mm is None and res.conc_molal_mmol_kg is None
@@ -351,16 +351,14 @@ def test_no_water_reference_gives_ratios_only():
 
 def test_missing_inputs_are_reported():
     with pytest.raises(InvalidInputError, match="proton"):
-        quantify({"NAA": 1.0, "Cr": 1.0})
-    with pytest.raises(InvalidInputError, match="volume_fractions"):
-        quantify({"NAA": 1.0}, proton_normalised=True, water_amplitude=1.0, field_t=3.0)
-    with pytest.raises(InvalidInputError, match="field_t"):
-        quantify(
-            {"NAA": 1.0}, proton_normalised=True, water_amplitude=1.0, te_s=0.03, tr_s=2.0,
-            volume_fractions={"gm": 1, "wm": 0, "csf": 0},
-        )
+        quantify(Amplitudes.from_mapping({"NAA": 1.0, "Cr": 1.0}))
+    with pytest.raises(InvalidInputError, match="tissue fractions"):
+        quantify({"NAA": 1.0}, water=WaterSignal(1.0), acquisition=Acquisition(None, None, 3.0))
+    with pytest.raises(InvalidInputError, match="field"):
+        quantify({"NAA": 1.0}, water=WaterSignal(1.0), acquisition=Acquisition(0.03, 2.0),
+                 tissue={"gm": 1, "wm": 0, "csf": 0})
     with pytest.raises(InvalidInputError, match="covariance"):
-        quantify({"NAA": 1.0, "Cr": 1.0}, proton_normalised=True, covariance=np.eye(3))
+        quantify(Amplitudes.from_mapping({"NAA": 1.0, "Cr": 1.0}, covariance=np.eye(3)))
 
 
 # ---------------------------------------------------------------------- relaxation table
@@ -450,12 +448,9 @@ def test_relaxation_overrides_dict_and_file(tmp_path):
 def test_quantify_with_the_bundled_table_records_sources():
     res = quantify(
         {"NAA": 10.0, "Cr": 6.0, "PCr": 2.0, "Tau": 1.0},
-        proton_normalised=True,
-        water_amplitude=2.0e4,
-        volume_fractions={"gm": 0.6, "wm": 0.3, "csf": 0.1},
-        te_s=0.03,
-        tr_s=2.0,
-        field_t=2.89,
+        water=WaterSignal(2.0e4),
+        tissue={"gm": 0.6, "wm": 0.3, "csf": 0.1},
+        acquisition=Acquisition(0.03, 2.0, 2.89),
     )
     consts = res.to_dict()["constants"]
     assert "Wansapura" in consts["water_relaxation"]["gm"]["source"]
@@ -493,8 +488,9 @@ def test_forward_model_of_a_voxel_is_inverted():
         {t: Relaxation(*water_t[t]) for t in f}, {"NAA": Relaxation(t1_m, t2_m)}
     )
     res = quantify(
-        {"NAA": s_m}, protons={"NAA": n_protons}, water_amplitude=s_w, volume_fractions=f,
-        te_s=te, tr_s=tr, water_tr_s=water_tr, relaxation=table, reference="NAA",
+        Amplitudes.from_mapping({"NAA": s_m}, protons={"NAA": n_protons}),
+        water=WaterSignal(s_w, tr_s=water_tr), tissue=f, acquisition=Acquisition(te, tr),
+        relaxation=table, reference="NAA",
     )
     assert res.conc_molar_mm["NAA"] == pytest.approx(c_true_mm, rel=1e-10)
     assert res.conc_molal_mmol_kg["NAA"] == pytest.approx(molal_true, rel=1e-10)

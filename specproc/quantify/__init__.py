@@ -32,6 +32,7 @@ References
    GM 0.78, WM 0.65, CSF 0.97 as used by [1]; values from memory).
 """
 
+from specproc.quantify.inputs import Acquisition, Amplitudes, Tissue, WaterSignal
 from specproc.quantify.relaxation import (
     RELAXATION_FILE,
     Relaxation,
@@ -60,9 +61,13 @@ __all__ = [
     "TISSUE_WATER_CONTENT",
     "TISSUE_WATER_CONTENT_SOURCE",
     "WATER_PROTONS",
+    "Acquisition",
+    "Amplitudes",
     "Quantification",
     "Relaxation",
     "RelaxationTimes",
+    "Tissue",
+    "WaterSignal",
     "combine_linear",
     "concentration_factors",
     "load_relaxation_times",

@@ -12,11 +12,10 @@ from typing import Any
 import numpy as np
 
 from specproc._json import to_jsonable
-from specproc.constants import WATER_MOLAR_MM
 from specproc.errors import InvalidInputError
+from specproc.quantify.inputs import Acquisition, Amplitudes, Tissue, WaterSignal
 from specproc.quantify.relaxation import _RELAX_FORMULA, RelaxationTimes, load_relaxation_times
 from specproc.quantify.sums import (
-    _as_cov,
     _ratio_formula,
     combine_linear,
     ratio_linear,
@@ -25,7 +24,6 @@ from specproc.quantify.water import (
     _MOLAL_FORMULA,
     _MOLAR_FORMULA,
     _SYMBOLS,
-    WATER_PROTONS,
     _positive,
     concentration_factors,
 )
@@ -152,71 +150,35 @@ class Quantification:
 
 
 def quantify(
-    amplitudes: Mapping[str, float] | Sequence[float] | np.ndarray,
+    amplitudes: Amplitudes | Mapping[str, float],
     *,
-    names: Sequence[str] | None = None,
-    covariance: Any = None,
-    amplitude_sd: Sequence[float] | np.ndarray | None = None,
-    protons: Mapping[str, float] | None = None,
-    proton_normalised: bool = False,
-    water_amplitude: float | None = None,
-    water_amplitude_sd: float | None = None,
-    water_proton_normalised: bool = False,
-    volume_fractions: Mapping[str, float] | None = None,
-    te_s: float | None = None,
-    tr_s: float | None = None,
-    water_te_s: float | None = None,
-    water_tr_s: float | None = None,
-    field_t: float | None = None,
-    relaxation: RelaxationTimes | None = None,
-    relaxation_overrides: Mapping[str, Any] | str | os.PathLike[str] | None = None,
-    water_content: Mapping[str, float] | None = None,
-    water_protons: float = WATER_PROTONS,
-    water_mm: float = WATER_MOLAR_MM,
+    water: WaterSignal | None = None,
+    tissue: Tissue | Mapping[str, float] | None = None,
+    acquisition: Acquisition | None = None,
+    relaxation: RelaxationTimes | Mapping[str, Any] | str | os.PathLike[str] | None = None,
     combinations: Mapping[str, Sequence[str]] = SUMS,
     reference: str = "tCr",
-    fraction_atol: float = 0.01,
 ) -> Quantification:
     """Ratios to tCr and, with a water reference, tissue-corrected concentrations.
 
     Parameters
     ----------
-    amplitudes : mapping of str to float, or (n,) array_like with ``names``
-        Fitted amplitudes of the basis members (macromolecules may be included; they get ratios
-        but their concentrations use the default relaxation and their proton weights).
-    names : sequence of str, optional
-        Member names when ``amplitudes`` is an array (default: the mapping's keys in order).
-    covariance : (n, n) array_like, optional
-        Covariance of the amplitudes in the order of ``names`` (e.g. Cramér-Rao covariance);
-        propagated to every sum, ratio and concentration.
-    amplitude_sd : (n,) array_like, optional
-        SDs, used as an uncorrelated covariance when ``covariance`` is not given.
-    protons : mapping of str to float, optional
-        Protons per molecule of each member (e.g. ``dict(zip(basis.names, basis.protons))``);
-        required unless ``proton_normalised``.
-    proton_normalised : bool
-        Whether the amplitudes are per proton (per molecule; see :func:`concentration_factors`).
-    water_amplitude : float, optional
-        Water signal area on the same scale; ``None`` gives ratios only.
-    water_amplitude_sd : float, optional
-        Its SD (independent of the metabolite amplitudes); default 0.
-    water_proton_normalised : bool
-        Whether ``water_amplitude`` is per proton.
-    volume_fractions : mapping, optional
-        GM, WM, CSF volume fractions; required with a water reference. (Without segmentation a
-        caller may pass pure-tissue fractions and say so.)
-    te_s, tr_s : float, optional
-        Metabolite TE and TR, s; required with a water reference.
-    water_te_s, water_tr_s : float, optional
-        Water reference TE and TR (default: ``te_s``, ``tr_s``).
-    field_t : float, optional
-        Field, T, to pick relaxation times when ``relaxation`` is not given.
-    relaxation : RelaxationTimes, optional
-        Relaxation times (default ``load_relaxation_times(field_t, overrides=...)``).
-    relaxation_overrides : mapping or path, optional
-        Overrides passed to :func:`load_relaxation_times`.
-    water_content, water_protons, water_mm, fraction_atol
-        See :func:`concentration_factors`.
+    amplitudes : Amplitudes or mapping of str to float
+        Fitted amplitudes (:meth:`Amplitudes.from_fit` for a fit); a plain mapping is taken
+        as per-molecule amplitudes without covariance. Macromolecules may be included: they get
+        ratios, and concentrations with the default relaxation and their proton weights.
+    water : WaterSignal, optional
+        The water reference signal (:meth:`WaterSignal.measure`); ``None`` gives ratios only.
+    tissue : Tissue or mapping, optional
+        The voxel's GM/WM/CSF fractions (a mapping: the fractions with the default water
+        constants); required with a water reference. (Without segmentation a caller may pass
+        pure-tissue fractions and say so.)
+    acquisition : Acquisition, optional
+        TE and TR of the metabolite scan, and the field to pick relaxation times; required with
+        a water reference.
+    relaxation : RelaxationTimes, mapping or path, optional
+        Relaxation times, or overrides merged over the bundled table
+        (:func:`load_relaxation_times` at ``acquisition.field_t``).
     combinations : mapping
         Sums to report (default :data:`specproc.sums.SUMS`; members matched
         case-insensitively).
@@ -229,36 +191,25 @@ def quantify(
 
     Examples
     --------
-    >>> q = quantify({"NAA": 12.0, "Cr": 6.0, "PCr": 2.0}, proton_normalised=True)
+    >>> q = quantify({"NAA": 12.0, "Cr": 6.0, "PCr": 2.0})
     >>> q.statement
     'no water reference: ratios to tCr only'
     >>> round(q.ratios["NAA"], 3)
     1.5
-    >>> q = quantify({"NAA": 12.0, "Cr": 6.0, "PCr": 2.0}, proton_normalised=True,
-    ...              water_amplitude=3.0e4, volume_fractions={"gm": 0.6, "wm": 0.3, "csf": 0.1},
-    ...              te_s=0.030, tr_s=2.0, field_t=3.0)
+    >>> q = quantify({"NAA": 12.0, "Cr": 6.0, "PCr": 2.0}, water=WaterSignal(3.0e4),
+    ...              tissue={"gm": 0.6, "wm": 0.3, "csf": 0.1},
+    ...              acquisition=Acquisition(te_s=0.030, tr_s=2.0, field_t=3.0))
     >>> round(q.conc_molar_mm["tNAA"], 2), round(q.conc_molal_mmol_kg["tNAA"], 2)
     (31.9, 43.3)
     """
-    if isinstance(amplitudes, Mapping):
-        member_names = [str(k) for k in amplitudes] if names is None else [str(n) for n in names]
-        try:
-            values = np.array([float(amplitudes[n]) for n in member_names], dtype=float)
-        except KeyError as exc:
-            raise InvalidInputError(f"no amplitude for {exc.args[0]!r}") from None
-    else:
-        if names is None:
-            raise InvalidInputError("names are needed when amplitudes are given as an array")
-        member_names = [str(n) for n in names]
-        values = np.asarray(amplitudes, dtype=float).reshape(-1)
-        if values.size != len(member_names):
-            raise InvalidInputError(f"{values.size} amplitudes but {len(member_names)} names")
-    if len(set(member_names)) != len(member_names):
-        raise InvalidInputError(f"repeated member names {member_names}")
-    if not np.all(np.isfinite(values)):
-        raise InvalidInputError("amplitudes must be finite numbers")
+    amps_in = amplitudes if isinstance(amplitudes, Amplitudes) else Amplitudes.from_mapping(
+        amplitudes, per_molecule=True)
+    member_names = list(amps_in.names)
+    values = amps_in.values
+    protons = amps_in.protons
+    proton_normalised = amps_in.per_molecule
     n = values.size
-    cov = _as_cov(covariance, amplitude_sd, n)
+    cov = amps_in.covariance
     notes: list[str] = []
     if cov is None:
         notes.append("no covariance given: SDs are NaN")
@@ -318,7 +269,7 @@ def quantify(
         notes.append(f"reference {reference!r} not fitted: no ratios")
 
     formula = {"relaxation": _RELAX_FORMULA, "symbols": _SYMBOLS}
-    if water_amplitude is None:
+    if water is None:
         statement = NO_WATER_STATEMENT if reference == "tCr" else (
             f"no water reference: ratios to {reference} only"
         )
@@ -338,18 +289,21 @@ def quantify(
         )
 
     # ---- water referencing
-    if volume_fractions is None or te_s is None or tr_s is None:
+    if tissue is None or acquisition is None or acquisition.te_s is None or (
+            acquisition.tr_s is None):
         raise InvalidInputError(
-            "water-referenced concentrations need volume_fractions (gm, wm, csf), te_s and tr_s"
+            "water-referenced concentrations need the tissue fractions (gm, wm, csf) and the "
+            "acquisition's TE and TR"
         )
-    if relaxation is None:
-        if field_t is None:
+    tissue = tissue if isinstance(tissue, Tissue) else Tissue(dict(tissue))
+    if not isinstance(relaxation, RelaxationTimes):
+        if acquisition.field_t is None:
             raise InvalidInputError(
-                "field_t (or relaxation times) is needed with a water reference"
+                "the field (acquisition.field_t) or relaxation times are needed with a water "
+                "reference"
             )
-        relaxation = load_relaxation_times(field_t, overrides=relaxation_overrides)
-    elif relaxation_overrides is not None:
-        raise InvalidInputError("give either relaxation or relaxation_overrides, not both")
+        relaxation = load_relaxation_times(acquisition.field_t, overrides=relaxation)
+    water_amplitude = water.amplitude
     metab_relax = {m: relaxation.metabolite(m) for m in member_names}
     defaulted = [m for m, r in metab_relax.items() if "default (no entry" in r.note]
     if defaulted:
@@ -357,25 +311,26 @@ def quantify(
     k_molar, k_molal, water_consts = concentration_factors(
         member_names,
         water_amplitude=water_amplitude,
-        volume_fractions=volume_fractions,
-        te_s=te_s,
-        tr_s=tr_s,
+        volume_fractions=tissue.fractions,
+        te_s=acquisition.te_s,
+        tr_s=acquisition.tr_s,
         metabolite_relaxation=metab_relax,
         water_relaxation=relaxation.water,
         protons=protons,
         proton_normalised=proton_normalised,
-        water_proton_normalised=water_proton_normalised,
-        water_te_s=water_te_s,
-        water_tr_s=water_tr_s,
-        water_protons=water_protons,
-        water_content=water_content,
-        water_mm=water_mm,
-        fraction_atol=fraction_atol,
+        water_proton_normalised=water.per_proton,
+        water_te_s=water.te_s,
+        water_tr_s=water.tr_s,
+        water_protons=tissue.water_protons,
+        water_content=tissue.water_content,
+        water_mm=tissue.water_mm,
+        fraction_atol=tissue.atol,
     )
+    water_protons = tissue.water_protons
     s_w = water_consts["water_signal"]
-    w_sd = 0.0 if water_amplitude_sd is None else float(water_amplitude_sd)
+    w_sd = float(water.amplitude_sd)
     if w_sd < 0 or not math.isfinite(w_sd):
-        raise InvalidInputError(f"water amplitude SD must be >= 0, got {water_amplitude_sd!r}")
+        raise InvalidInputError(f"water amplitude SD must be >= 0, got {water.amplitude_sd!r}")
     rel_w_var = (w_sd / float(water_amplitude)) ** 2
 
     def scaled(k: Mapping[str, float] | np.ndarray) -> tuple[dict[str, float], dict[str, float]]:
