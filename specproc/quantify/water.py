@@ -414,15 +414,15 @@ def water_amplitude(
     cov = np.linalg.pinv((design * w[:, None]).T @ (design * w[:, None])) * sigma2
     amplitude = float(np.exp(coef[0]))
     sd = amplitude * float(np.sqrt(max(cov[0, 0], 0.0)))
-    lorentz = float(coef[1]) / np.pi
-    gauss_sq = float(coef[2]) * 4.0 * np.log(2.0)
+    from specproc.fit.model import gauss_fwhm_hz, lorentz_fwhm_hz
+
     details = {
         "method": "ln|w(t)| = ln S_W - a t - b t^2 fitted by weighted least squares "
                   "(weights |w|^2); S_W extrapolated to t = 0",
         "window_s": [float(window_s[0]), float(window_s[1])],
         "n_points": int(tt.size),
         "first_point_magnitude": float(mag[0]),
-        "lorentz_fwhm_hz": lorentz,
-        "gauss_fwhm_hz": float(np.sqrt(gauss_sq)) / np.pi if gauss_sq > 0 else 0.0,
+        "lorentz_fwhm_hz": lorentz_fwhm_hz(float(coef[1])),
+        "gauss_fwhm_hz": gauss_fwhm_hz(float(coef[2])),
     }
     return amplitude, sd, details
