@@ -468,10 +468,9 @@ def cache_dir() -> Path:
 
 
 def _cache_key(inputs: Mapping[str, Any]) -> str:
-    import hashlib
+    from specproc._hash import json_sha256
 
-    text = json.dumps(inputs, sort_keys=True, allow_nan=False)
-    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+    return json_sha256(inputs)
 
 
 ProgressCallback = Callable[[int, int, str], None]

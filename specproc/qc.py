@@ -642,15 +642,11 @@ class QCReport:
         return not self.flags
 
     def to_dict(self) -> dict[str, Any]:
-        """JSON-serialisable dict (NaN written as ``None``)."""
+        """JSON-serialisable dict (NaN written as ``None``; :func:`specproc._json.to_jsonable`)."""
+        from specproc._json import to_jsonable
 
-        def num(x: Any) -> Any:
-            if x is None:
-                return None
-            x = float(x)
-            return x if math.isfinite(x) else None
-
-        return {
+        num = to_jsonable
+        return to_jsonable({
             "passed": self.passed,
             "snr": num(self.snr),
             "noise_sd": num(self.noise_sd),
@@ -672,7 +668,7 @@ class QCReport:
             "definitions": dict(QC_DEFINITIONS),
             "settings": self.settings,
             "notes": list(self.notes),
-        }
+        })
 
 
 def qc_report(
@@ -738,7 +734,7 @@ def qc_report(
     p, s = _arrays(ppm, spectrum)
     nan = float("nan")
     sd = nan
-    region_used = None
+    region_used: list[Any] | None = None
     if known_noise_sd is not None:
         sd = float(known_noise_sd)
         region_used = [[float(a), float(b)] for a, b in noise_regions_ppm]

@@ -86,12 +86,14 @@ class TransientReport:
         return int(self.kept.size)
 
     def to_dict(self) -> dict[str, Any]:
-        """Plain-JSON form (``nan`` becomes ``None``)."""
-        def clean(values: np.ndarray) -> list[float | None]:
-            return [float(v) if np.isfinite(v) else None for v in values]
+        """Plain-JSON form (``nan`` becomes ``None``; :func:`specproc._json.to_jsonable`)."""
+        from specproc._json import to_jsonable
 
-        return {"shifts_hz": clean(self.shifts_hz), "phases_deg": clean(self.phases_deg),
-                "scores": clean(self.scores), "kept": [bool(v) for v in self.kept]}
+        return to_jsonable({
+            "shifts_hz": np.asarray(self.shifts_hz, dtype=float),
+            "phases_deg": np.asarray(self.phases_deg, dtype=float),
+            "scores": np.asarray(self.scores, dtype=float),
+            "kept": [bool(v) for v in self.kept]})
 
 
 @dataclass(frozen=True)

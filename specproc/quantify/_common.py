@@ -27,4 +27,6 @@ def _positive(
 
 
 def _json_number(x: float) -> float | None:
-    return float(x) if math.isfinite(x) else None
+    from specproc._json import to_jsonable
+
+    return to_jsonable(float(x))
