@@ -101,6 +101,7 @@ from specproc.errors import InvalidInputError
 
 __all__ = [
     "NAA_SHIFT_PPM",
+    "PLAUSIBLE_RECOVERY_PERCENT",
     "WATER_SHIFT_COEFFICIENT_PPM_PER_C",
     "WATER_SHIFT_REFERENCE_PPM",
     "NominalSpec",
@@ -397,6 +398,9 @@ class PhantomMeasurement:
         Per compound.
     temperature_c : float
         Estimated sample temperature (NaN when a peak was not found).
+    temperature_sd_c : float
+        Its approximate SD, °C: the Cramér-Rao SD of the fitted frequency shift taken for each
+        of the two peak positions, ``σ_T = √2 · σ_δ / |k|`` (NaN when not available).
     temperature_nominal_c : float or None
         Thermometer reading from the nominal file.
     water_ppm, singlet_ppm : float
@@ -422,6 +426,19 @@ class PhantomMeasurement:
     naa_fwhm_hz: float
     water_fwhm_hz: float
     notes: tuple[str, ...] = ()
+    temperature_sd_c: float = math.nan
+
+
+#: Recoveries outside this range (%) get a warning: a wrong water content of the solution, a
+#: water reference of another scan, or a compound the basis does not model (common practice).
+PLAUSIBLE_RECOVERY_PERCENT: tuple[float, float] = (50.0, 200.0)
+
+
+def _shift_sd_ppm(fit: Any) -> float:
+    """Largest Cramér-Rao SD of the fitted group frequency shifts, ppm (NaN if none)."""
+    sds = [float(v) for k, v in fit.nonlinear_sd.items()
+           if k.startswith("shift_") and k.endswith("_hz") and math.isfinite(v)]
+    return max(sds) / fit.spectrometer_mhz if sds else math.nan
 
 
 def _session_label(scan: Scan, path: Path) -> str:
@@ -520,6 +537,17 @@ def analyse_phantom(
             measured[name] = phantom.concentrations_mm[ref] * amp[name.lower()] / a_ref
     recovery = {n: (100.0 * measured[n] / v if v > 0 else math.nan)
                 for n, v in phantom.concentrations_mm.items()}
+    # the analysis' notes on its inputs; a phantom has no tissue fractions by design
+    notes = [*(n for n in result.notes if "tissue fractions" not in n), *notes]
+    low, high = PLAUSIBLE_RECOVERY_PERCENT
+    odd = [f"{n} {r:.0f} %" for n, r in recovery.items() if math.isfinite(r)
+           and not low <= r <= high]
+    if odd:
+        hint = (f"the water content of the solution (water_mm = {nominal.water_mm:g} mM) or the "
+                "water reference" if nominal.reference.lower() == "water"
+                else f"the nominal concentration of {nominal.reference}")
+        notes.append(f"Implausible recovery ({', '.join(odd)}; expected {low:g}-{high:g} %): "
+                     f"check {hint}.")
 
     # ---- thermometry (the difference of two shifts does not depend on referencing)
     th = nominal.thermometry
@@ -533,8 +561,9 @@ def analyse_phantom(
                                      search_ppm=0.5)
         singlet_ppm = measure_peak_ppm(pre.scan, around_ppm=th.singlet_ppm, search_ppm=0.15)
         temperature = temperature_from_shifts(water_ppm, singlet_ppm, thermometry=th)
+        temperature_sd = math.sqrt(2.0) * _shift_sd_ppm(fit) / abs(th.coefficient_ppm_per_c)
     except InvalidInputError as exc:
-        water_ppm = singlet_ppm = temperature = math.nan
+        water_ppm = singlet_ppm = temperature = temperature_sd = math.nan
         notes.append(f"temperature not estimated: {exc.message}")
     qc = result.qc
     return PhantomMeasurement(
@@ -545,7 +574,7 @@ def analyse_phantom(
         temperature_c=float(temperature), temperature_nominal_c=phantom.temperature_c,
         water_ppm=float(water_ppm), singlet_ppm=float(singlet_ppm), snr=float(qc.snr),
         naa_fwhm_hz=float(qc.naa_fwhm_hz), water_fwhm_hz=float(qc.water_fwhm_hz),
-        notes=tuple(notes),
+        notes=tuple(notes), temperature_sd_c=float(temperature_sd),
     )
 
 

@@ -14,16 +14,16 @@ OUTDIR (default ``phantom-qa``):
 ``phantom_qa.tsv``
     One row per scan, in session order: estimated and nominal temperature, water and singlet
     shifts, SNR, NAA and water linewidths.
-``phantom_trends.png``
-    SNR, linewidth and temperature across sessions.
+``phantom_report.html``
+    The page of the run (:func:`specproc.report.phantom.render_phantom_report`): nominal
+    against measured concentrations, recovery, linearity with its fit and R², temperature with
+    its SD, and SNR, linewidth and temperature over sessions when there are several.
 
 Research use only; not a medical device.
 """
 
 from __future__ import annotations
 
-import io
-import math
 import re
 from pathlib import Path
 
@@ -48,40 +48,6 @@ def _water_beside(scan: Path) -> Path | None:
     return None
 
 
-def _figure(measurements: list) -> bytes:
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.figure import Figure
-
-    labels = [m.session or str(i + 1) for i, m in enumerate(measurements)]
-    x = list(range(len(measurements)))
-    fig = Figure(figsize=(8.0, 6.5), layout="constrained")
-    FigureCanvasAgg(fig)
-    axes = fig.subplots(3, 1, sharex=True)
-    axes[0].plot(x, [m.snr for m in measurements], "o-", color="#2e6e9e")
-    axes[0].set_ylabel("SNR (NAA)")
-    axes[1].plot(x, [m.naa_fwhm_hz for m in measurements], "o-", color="#9e5a2e",
-                 label="NAA")
-    if any(math.isfinite(m.water_fwhm_hz) for m in measurements):
-        axes[1].plot(x, [m.water_fwhm_hz for m in measurements], "s--", color="#5a9e2e",
-                     label="water")
-    axes[1].set_ylabel("FWHM (Hz)")
-    axes[1].legend(fontsize=8, frameon=False)
-    axes[2].plot(x, [m.temperature_c for m in measurements], "o-", color="#7a2e9e",
-                 label="estimated")
-    nominal = [m.temperature_nominal_c for m in measurements]
-    if any(v is not None for v in nominal):
-        axes[2].plot(x, [math.nan if v is None else v for v in nominal], "x", color="0.3",
-                     label="thermometer")
-    axes[2].set_ylabel("temperature (°C)")
-    axes[2].legend(fontsize=8, frameon=False)
-    axes[2].set_xticks(x, labels, rotation=45, ha="right", fontsize=7)
-    axes[2].set_xlabel("session")
-    fig.suptitle("Phantom QA across sessions (research use only)", fontsize=10)
-    buffer = io.BytesIO()
-    fig.savefig(buffer, format="png", dpi=100, metadata={"Software": None})
-    return buffer.getvalue()
-
-
 @click.command("phantom")
 @click.argument("scans", metavar="SCAN...", nargs=-1, required=True,
                 type=click.Path(dir_okay=False, path_type=Path))
@@ -100,7 +66,7 @@ def _figure(measurements: list) -> bytes:
 def phantom(scans: tuple[Path, ...], nominal_file: Path, water_files: tuple[Path, ...],
             config_file: Path | None, out_dir: Path) -> None:
     """Validate phantom scans: recovery, linearity, temperature, SNR and linewidth trends."""
-    from specproc._atomic import write_bytes, write_text
+    from specproc._atomic import write_text
     from specproc.config import load_config
     from specproc.errors import InvalidInputError
     from specproc.phantom import analyse_phantom, linearity, load_nominal
@@ -134,7 +100,11 @@ def phantom(scans: tuple[Path, ...], nominal_file: Path, water_files: tuple[Path
         ("compound", "slope", "intercept_mm", "r_squared", "n"),
         [(k, v["slope"], v["intercept_mm"], v["r_squared"], v["n"]) for k, v in lin.items()]))
     write_text(out_dir / "phantom_qa.tsv", tsv_text(_QA_COLUMNS, qa_rows))
-    write_bytes(out_dir / "phantom_trends.png", _figure(measurements))
+    from specproc import __version__
+    from specproc.report.phantom import render_phantom_report
+
+    write_text(out_dir / "phantom_report.html",
+               render_phantom_report(measurements, lin, nominal, version=__version__))
 
     click.echo(f"thermometry: {nominal.thermometry.formula()}")
     for m in measurements:
@@ -145,7 +115,10 @@ def phantom(scans: tuple[Path, ...], nominal_file: Path, water_files: tuple[Path
         click.echo(f"linearity {name}: slope {format_cell(v['slope'])}, intercept "
                    f"{format_cell(v['intercept_mm'])} mM, R2 {format_cell(v['r_squared'])} "
                    f"(n={v['n']})")
-    click.echo(f"tables and figure in {out_dir}")
+    for m in measurements:
+        for note in m.notes:
+            click.echo(f"specproc: note: {m.scan}: {note}", err=True)
+    click.echo(f"tables and report in {out_dir} (phantom_report.html)")
 
 
 COMMANDS = [phantom]

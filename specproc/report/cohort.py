@@ -29,6 +29,7 @@ import numpy as np
 from specproc.report.html import render_page
 from specproc.report.messages import member_label, sentences
 from specproc.report.palette import FIT, member_colour
+from specproc.report.svgplot import nice_ticks
 from specproc.report.tables import CONCENTRATION_KINDS, crlb_reliable, sig
 
 __all__ = ["PRINCIPAL", "SUMMARY_COLUMNS", "CohortPage", "summary_statistics"]
@@ -71,21 +72,6 @@ class _Member:
     ratio: list[tuple[str, float, bool]] = field(default_factory=list)
 
 
-def _nice_ticks(lo: float, hi: float, n: int = 4) -> list[float]:
-    if not (math.isfinite(lo) and math.isfinite(hi)) or hi <= lo:
-        return [lo] if math.isfinite(lo) else []
-    raw = (hi - lo) / n
-    power = 10.0 ** math.floor(math.log10(raw))
-    step = next(s * power for s in (1, 2, 2.5, 5, 10) if s * power >= raw)
-    start = math.ceil(lo / step) * step
-    ticks = []
-    v = start
-    while v <= hi + 1e-9 * step:
-        ticks.append(round(v, 12))
-        v += step
-    return ticks
-
-
 def _strip_panel(title: str, unit: str, points: Sequence[tuple[str, float, bool]],
                  colour: str, *, width: float = 210.0, height: float = 170.0
                  ) -> dict[str, Any]:
@@ -117,7 +103,7 @@ def _strip_panel(title: str, unit: str, points: Sequence[tuple[str, float, bool]
         m = float(np.mean(included))
         mean = {"y": f"{y(m):.1f}", "x1": f"{centre - spread * 0.8:.1f}",
                 "x2": f"{centre + spread * 0.8:.1f}", "label": f"mean {sig(m)} {unit}".rstrip()}
-    ticks = [{"y": f"{y(t):.1f}", "label": f"{t:.6g}"} for t in _nice_ticks(lo, hi)]
+    ticks = [{"y": f"{y(t):.1f}", "label": f"{t:.6g}"} for t in nice_ticks(lo, hi)]
     return {"title": title, "unit": unit, "width": width, "height": height, "points": geometry,
             "ticks": ticks, "mean": mean, "colour": colour,
             "plot": (left, right, top, bottom)}
@@ -267,7 +253,7 @@ class CohortPage:
         band = path(np.concatenate([x(g), x(g)[::-1]]),
                     np.concatenate([y(mean + sd), y((mean - sd)[::-1])]))
         ticks = [{"x": f"{float(x(np.array([t]))[0]):.1f}", "label": f"{t:.6g}"}
-                 for t in _nice_ticks(float(g.min()), float(g.max()), 8)]
+                 for t in nice_ticks(float(g.min()), float(g.max()), 8)]
         return {"n": n, "band": band, "mean": path(x(g), y(mean)), "width": width,
                 "height": height, "ticks": ticks, "colour": FIT,
                 "plot": (left, right, top, bottom)}
