@@ -29,7 +29,9 @@ each timing, or null for a basis given by the caller), ``basis`` (origin, member
 timings, hashes), ``fit`` (:func:`specproc.fit.result_to_dict` without spectra and without the
 full parameter covariance), ``water_amplitude`` (or null), ``quantification``
 (:meth:`specproc.quantify.Quantification.to_dict`: formula and constants), ``qc``
-(:meth:`specproc.qc.QCReport.to_dict`), ``notes`` and ``outputs`` (file names by role). The
+(:meth:`specproc.qc.QCReport.to_dict`), ``spectrum`` (``ppm``, and the real parts of the
+phased ``data`` and ``fit`` on the fit range, for overlays), ``notes`` and ``outputs`` (file
+names by role). The
 document holds no absolute path, so that one scan analysed by ``specproc fit`` and by
 ``specproc batch`` gives the same numbers (only the time stamps of the processing records and
 the wall time differ).
@@ -645,6 +647,11 @@ def write_scan_outputs(result: ScanResult, outdir: str | os.PathLike[str]) -> di
         notes.append(f"preprocessing figure not drawn: {type(exc).__name__}: {exc}")
     roles = [r for r in OUTPUT_FILES if r in texts or r in blobs or r in ("json", "report")]
     document = result.to_dict()
+    fit = result.fit
+    # the phased absorption spectra on the fit range, for cohort overlays (6 digits suffice)
+    document["spectrum"] = {"ppm": [round(float(v), 5) for v in fit.ppm],
+                            "data": [float(f"{v:.6g}") for v in fit.data.real],
+                            "fit": [float(f"{v:.6g}") for v in fit.fit.real]}
     document["notes"] = notes
     document["outputs"] = {role: OUTPUT_FILES[role] for role in roles}
     texts["json"] = dumps(document, indent=1, allow_nan=False) + "\n"

@@ -127,5 +127,7 @@ def test_parameters_at_their_limits_are_described() -> None:
 
 def test_numbers_have_consistent_significant_figures() -> None:
     assert [sig(v) for v in (87.9, 25.47, 3.091, 1.0)] == ["87.9", "25.5", "3.09", "1.00"]
+    assert [sig(v) for v in (9.996, 99.97, 0.012345, 123456.0, 2.5e-7)] == [
+        "10.0", "100", "0.0123", "123000", "2.50e-07"]
     assert [crlb_text(v) for v in (87.9, 25.47, 3.091)] == ["88", "25", "3.1"]
     assert crlb_text(float("nan")) == crlb_text(None) == CRLB_UNDEFINED

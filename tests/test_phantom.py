@@ -118,7 +118,31 @@ def test_phantom_cli_recovery_linearity_temperature(phantom_files: Path,
         assert float(lin[name]["slope"]) == pytest.approx(1.0, abs=0.05)
         assert float(lin[name]["r_squared"]) > 0.995
         assert lin[name]["n"] == "3"
-    assert (out / "phantom_trends.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    check_phantom_page(out, recovery, lin, tmp_path)
+
+
+def check_phantom_page(out: Path, recovery: list[dict[str, str]],
+                       lin: dict[str, dict[str, str]], tmp_path: Path) -> None:
+    """The phantom report as headless Chromium builds it agrees with the TSV tables."""
+    from _browser import dump_dom, tables
+
+    page = tables(dump_dom(out / "phantom_report.html", tmp_path / "profile"))
+    heading, *rows = page["recovery-table"]
+    assert heading[:6] == ["scan", "session", "compound", "nominal (mM)", "measured (mM)",
+                           "recovery (%)"]
+    assert len(rows) == len(recovery)
+    for shown, row in zip(rows, recovery, strict=True):
+        assert shown[2] == row["compound"]
+        for cell, column in ((shown[4], "measured_mm"), (shown[5], "recovery_percent")):
+            assert float(cell) == pytest.approx(float(row[column]), rel=6e-3)
+    _, *lin_rows = page["linearity-table"]
+    for shown in lin_rows:
+        assert float(shown[3]) == pytest.approx(float(lin[shown[0]]["r_squared"]), rel=1e-3)
+    _, *temps = page["temperature-table"]
+    assert len(temps) == 3 and all("±" in row[2] for row in temps)
+    html = (out / "phantom_report.html").read_text("utf-8")
+    assert "not a medical device" in html and "<script" not in html
+    assert html.count("<svg") >= 1 + 2 + 3  # recovery, two linearity panels, three trends
 
 
 def test_temperature_without_water_reference_uses_residual_water(phantom_files: Path,

@@ -223,6 +223,8 @@ def summarise_fit_json(document: Mapping[str, Any]) -> dict[str, Any]:
         "flags": flags,
         "statement": str(quant.get("statement") or ""),
         "metabolites": _metabolite_rows(list(fit.get("table") or []), quant),
+        "spectrum": {k: (document.get("spectrum") or {}).get(k) for k in ("ppm", "fit")}
+        if isinstance(document.get("spectrum"), Mapping) else None,
     }
 
 

@@ -54,7 +54,7 @@ def _recovery_panel(measurements: Sequence[Any]) -> dict[str, Any]:
     return xy_panel("Recovery (measured / nominal)", series, y_label="recovery (%)",
                     lines=[{"x": (-0.5, len(names) - 0.5), "y": (100.0, 100.0),
                             "colour": "#1f2430", "dash": True, "label": "100 %"}],
-                    band=tuple(f"{b:g}" for b in RECOVERY_BAND_PERCENT),
+                    band=RECOVERY_BAND_PERCENT,
                     x_ticks=[(float(k), n) for k, n in enumerate(names)],
                     width=max(320.0, 60.0 * len(names) + 80.0))
 

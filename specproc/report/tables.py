@@ -71,6 +71,8 @@ def sig(value: Any, digits: int = 3) -> str:
     if v == 0:
         return "0"
     magnitude = math.floor(math.log10(abs(v)))
+    if abs(round(v, digits - 1 - magnitude)) >= 10.0 ** (magnitude + 1):
+        magnitude += 1  # 9.996 rounds up to 10.0, which has one decimal fewer
     if -3 <= magnitude < 6:
         decimals = digits - 1 - magnitude
         rounded = round(v, decimals)
