@@ -4,8 +4,9 @@ The summary table is read back from the DOM that headless Chromium builds from
 ``cohort.html`` and compared with statistics recomputed here from ``cohort.tsv`` with the
 standard library's :mod:`statistics` (mean, sample SD, median, quartiles by the inclusive
 method, which is linear interpolation between order statistics) under the exclusion rules the
-page states: flagged scans left out, values with a CRLB above 20 % (the default
-``[qc] crlb_percent_max``) or undefined left out, macromolecules not summarised.
+page states: phantom scans (manifest kind) not summarised, flagged scans left out, values with
+a CRLB above 20 % (the default ``[qc] crlb_percent_max``) or undefined left out,
+macromolecules not summarised.
 """
 
 from __future__ import annotations
@@ -26,8 +27,19 @@ def _read(path: Path) -> list[dict[str, str]]:
         return list(csv.DictReader(handle, delimiter="\t"))
 
 
+def _phantom_subjects() -> set[str]:
+    """Subjects the demo manifest marks as phantoms (listed, not summarised)."""
+    from specproc._paths import demo_dir
+
+    rows = _read(demo_dir() / "manifest.tsv")
+    return {r["subject"].removeprefix("sub-") for r in rows if r["kind"] == "phantom"}
+
+
 def _expected(rows: list[dict[str, str]], column: str) -> dict[str, dict[str, float]]:
     out: dict[str, dict[str, float]] = {}
+    phantoms = _phantom_subjects()
+    assert phantoms == {"phantom"}
+    rows = [r for r in rows if r["subject"] not in phantoms]
     names = {r["metabolite"] for r in rows if r["kind"] in ("metabolite", "sum")}
     for name in names:
         mine = [r for r in rows if r["metabolite"] == name and r[column] != "n/a"]

@@ -122,7 +122,7 @@ def write_cohort(entries: Sequence[ScanEntry], out_dir: str | Path, *,
                 report = out / "scans" / entry.key / "report.html"
                 page.add(entry.key, summary,
                          report_href=f"scans/{entry.key}/report.html" if report.is_file()
-                         else None)
+                         else None, phantom=entry.is_phantom)
     write_text(out / "cohort.html", page.render(version=__version__, n_scans=len(entries)))
     return counts
 

@@ -77,7 +77,7 @@ __all__ = [
 #: Columns a manifest may have; only ``scan`` is required.
 MANIFEST_COLUMNS: tuple[str, ...] = (
     "scan", "water", "subject", "session", "scan_id", "gm", "wm", "csf",
-    "te_ms", "tm_ms", "tr_ms", "sequence", "te1_ms", "delays_ms",
+    "te_ms", "tm_ms", "tr_ms", "sequence", "te1_ms", "delays_ms", "kind",
 )
 
 _SAFE = re.compile(r"[^A-Za-z0-9._+-]+")
@@ -109,6 +109,11 @@ class ScanEntry:
     timings : mapping of str to Any
         Basis sub-timings of the manifest (``te1_s``, ``tm_s`` s, ``delays_s`` tuple of s),
         the ``manifest`` source of :func:`specproc.protocol.resolve_protocol`.
+    kind : str
+        What was scanned, lower case (``"phantom"``, ``"volunteer"``, ``"patient"`` ...; ""
+        when not given). ``"phantom"`` selects the phantom protocol: a basis without
+        macromolecules, and the scan is listed on the cohort page but not summarised with
+        the others.
     """
 
     key: str
@@ -121,6 +126,12 @@ class ScanEntry:
     tissue: Mapping[str, float] | None = None
     overrides: Mapping[str, Any] = field(default_factory=dict)
     timings: Mapping[str, Any] = field(default_factory=dict)
+    kind: str = ""
+
+    @property
+    def is_phantom(self) -> bool:
+        """Whether the manifest says this scan is of a phantom."""
+        return self.kind == "phantom"
 
     def describe(self) -> dict[str, Any]:
         """Plain dict of everything a result depends on besides file contents (for hashes)."""
@@ -134,6 +145,7 @@ class ScanEntry:
             "overrides": dict(sorted(self.overrides.items())),
             **({"timings": {k: list(v) if isinstance(v, tuple) else v
                             for k, v in sorted(self.timings.items())}} if self.timings else {}),
+            **({"kind": self.kind} if self.kind else {}),
         }
 
 
@@ -339,7 +351,7 @@ def read_manifest(path: str | os.PathLike[str]) -> list[ScanEntry]:
             key=key, scan_path=scan_path, water_path=water_path,
             scan_label=row["scan"].strip(), water_label=row.get("water", "").strip(),
             subject=subject, session=session, tissue=tissue, overrides=overrides,
-            timings=timings,
+            timings=timings, kind=row.get("kind", "").strip().lower(),
         ))
     if not entries:
         raise InvalidInputError("the manifest lists no scans", where)

@@ -1,8 +1,11 @@
-"""Reports of processed scans: tidy tables, figure bytes, the self-contained HTML page.
+"""Every rendering of specproc: tables, sentences, figures and the self-contained HTML pages.
 
 Rendering only (nothing here computes results): :mod:`.tables` (results rows, QC rows, the
-methods table after Lin et al. 2021, TOML of the settings), :mod:`.figures` (PNG/PDF bytes and
-data URIs) and :mod:`.html` (the report page, every data string escaped).
+methods table after Lin et al. 2021, significant figures), :mod:`.messages` (flag keys as
+sentences), :mod:`.palette` (one colour per member), :mod:`.fit_figure`,
+:mod:`.preprocess_figure`, :mod:`.fit_text`, :mod:`.figures` (PNG/PDF bytes and data URIs),
+:mod:`.html` (the scan report through Jinja2 templates with autoescaping), :mod:`.cohort`
+(the cohort page), :mod:`.phantom` (the phantom report) and :mod:`.svgplot` (inline SVG plots).
 """
 
 from specproc.report.figures import figure_pdf_bytes, figure_png_bytes, png_data_uri

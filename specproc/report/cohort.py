@@ -139,25 +139,36 @@ class CohortPage:
         self._sum: np.ndarray | None = None
         self._sumsq: np.ndarray | None = None
         self._n_spectra = 0
+        self.n_phantoms = 0
 
     # ------------------------------------------------------------------ collecting
-    def add(self, key: str, summary: Mapping[str, Any], *, report_href: str | None) -> None:
+    def add(self, key: str, summary: Mapping[str, Any], *, report_href: str | None,
+            phantom: bool = False) -> None:
         """Take one scan's summary (``status``, ``reason``, ``qc``, ``flags``, ``metabolites``,
-        optionally ``spectrum`` with ``ppm``, ``fit`` lists)."""
+        optionally ``spectrum`` with ``ppm``, ``fit`` lists).
+
+        A phantom scan is counted and listed (with its flags) but not summarised.
+        """
         status = str(summary.get("status", "failed"))
         self.counts[status if status in self.counts else "failed"] += 1
         qc = dict(summary.get("qc") or {})
         flags = [str(f) for f in summary.get("flags") or []]
         href = report_href if status != "failed" else None
-        self.scans.append({"key": key, "status": status, "href": href or ""})
+        self.scans.append({"key": key, "status": status + (", phantom" if phantom else ""),
+                           "href": href or ""})
         if status == "failed":
             self.attention.append({"key": key, "status": "failed", "href": "",
                                    "reasons": [str(summary.get("reason") or "no reason given")]})
             return
         if flags:
-            self.attention.append({"key": key, "status": status, "href": href or "",
+            self.attention.append({"key": key, "status": status + (", phantom" if phantom
+                                                                   else ""),
+                                   "href": href or "",
                                    "reasons": sentences(flags, qc=qc,
                                                         thresholds=self.thresholds.to_dict())})
+        if phantom:
+            self.n_phantoms += 1
+            return
         scan_ok = not (flags and self.exclude_flagged)
         for name in self.qc_points:
             v = qc.get(name)
@@ -283,6 +294,9 @@ class CohortPage:
              "A value whose CRLB is undefined is left out (no CRLB limit is set)."),
             "Macromolecule and lipid components are not summarised (no molar unit).",
         ]
+        if self.n_phantoms:
+            rules.append(f"{self.n_phantoms} phantom scan(s) (manifest kind 'phantom') are "
+                         "listed below but not summarised with the others.")
         return render_page(
             "cohort.html.j2",
             page_title=self.title,
