@@ -172,43 +172,17 @@ def plot_command(file: Path, output: Path, ppm_range: tuple[float, float], lb_hz
 
     Each trace is scaled to its own maximum within the shown range.
     """
-    import matplotlib
-    import numpy as np
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
     from specproc._atomic import atomic_path
     from specproc.basis import BasisSet
+    from specproc.report.basis_figure import plot_basis
 
-    result = BasisSet.load(file)
-    lo, hi = sorted(ppm_range)
-    ppm = result.ppm()
-    inside = (ppm >= lo) & (ppm <= hi)
-    if not inside.any():
-        raise InvalidInputError(f"no spectral points between {lo:g} and {hi:g} ppm", file)
-    spectra = result.spectrum(lb_hz=max(lb_hz, 0.0)).real
-    n = len(result.names)
-    fig, ax = plt.subplots(figsize=(7.5, 1.0 + 0.55 * n), layout="constrained")
-    for i, name in enumerate(result.names):
-        offset = (n - 1 - i) * 1.2
-        trace = spectra[i, inside]
-        scale = float(np.max(np.abs(trace))) or 1.0  # each trace scaled to its own maximum
-        ax.plot(ppm[inside], trace / scale * 0.5 + offset, lw=0.8, color="#204a87")
-        ax.text(hi, offset + 0.25, f" {name}", fontsize=8, va="bottom", ha="left")
-    ax.set_xlim(hi, lo)  # shift decreases to the right
-    ax.set_yticks([])
-    ax.set_xlabel("chemical shift (ppm)")
-    for side in ("left", "right", "top"):
-        ax.spines[side].set_visible(False)
-    ax.set_title(
-        f"{result.sequence}, {result.field_t:.2f} T, TE {result.timings_s.get('te_s', 0) * 1e3:g}"
-        " ms", fontsize=9,
-    )
+    try:
+        fig = plot_basis(BasisSet.load(file), ppm_range=ppm_range, lb_hz=lb_hz)
+    except InvalidInputError as exc:
+        raise exc.with_path(file) from None
     suffix = output.suffix.lower().lstrip(".") or "png"
     with atomic_path(output) as tmp:
         fig.savefig(tmp, format=suffix, dpi=120)
-    plt.close(fig)
     click.echo(f"wrote {output}")
 
 
