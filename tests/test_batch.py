@@ -400,7 +400,9 @@ def test_demo_study_manifest_and_folder_agree() -> None:
     found = discover_bids(demo)
     assert [e.key for e in listed] == [e.key for e in found]
     assert [e.water_path for e in listed] == [e.water_path for e in found]
-    assert ignored_columns(demo / "manifest.tsv") == ["kind"]
+    assert ignored_columns(demo / "manifest.tsv") == []
+    assert {e.key: e.kind for e in listed}["sub-phantom_ses-01_svs"] == "phantom"
+    assert sum(e.is_phantom for e in listed) == 1
     with_tissue = [e for e in listed if e.tissue is not None]
     for e in with_tissue:  # fractions renormalised to sum to 1 (quantify's rule)
         assert sum(e.tissue.values()) == pytest.approx(1.0)
