@@ -358,11 +358,16 @@ class BasisSet:
         except OSError as exc:
             reason = exc.strerror or exc
             raise InvalidInputError(f"cannot read basis file: {reason}", path) from None
+        if not raw.startswith(b"PK\x03\x04"):  # a .npz basis is a zip archive
+            raise InvalidInputError(
+                "not a specproc basis file (a .npz written by `specproc basis simulate`); "
+                "give a basis file, or 'auto' to simulate one for the scan", path)
         try:
             with np.load(io.BytesIO(raw), allow_pickle=False) as archive:
                 arrays = {k: archive[k] for k in archive.files}
-        except (OSError, ValueError, zipfile.BadZipFile, EOFError) as exc:
-            raise InvalidInputError(f"not a specproc basis file ({exc})", path) from None
+        except (OSError, ValueError, zipfile.BadZipFile, EOFError):
+            raise InvalidInputError(
+                "not a specproc basis file (a damaged or foreign .npz archive)", path) from None
         need = {"metadata", "fids", "has_lines", "line_member", "line_freq_hz", "line_amp",
                 "line_gauss_fwhm_hz"}
         if not need <= set(arrays):

@@ -131,3 +131,17 @@ def test_numbers_have_consistent_significant_figures() -> None:
         "10.0", "100", "0.0123", "123000", "2.50e-07"]
     assert [crlb_text(v) for v in (87.9, 25.47, 3.091)] == ["88", "25", "3.1"]
     assert crlb_text(float("nan")) == crlb_text(None) == CRLB_UNDEFINED
+
+
+def test_basis_show_on_a_spectroscopy_file_says_what_it_needs() -> None:
+    from click.testing import CliRunner
+
+    from specproc._paths import demo_dir
+    from specproc.cli import main
+
+    scan = demo_dir() / "example" / "example_svs.nii.gz"
+    result = CliRunner().invoke(main, ["basis", "show", str(scan)])
+    assert result.exit_code == 2
+    line = result.output.strip()
+    assert "not a specproc basis file" in line and "basis simulate" in line
+    assert "pickle" not in line and len(line.splitlines()) == 1
