@@ -275,3 +275,21 @@ def test_report_renders_in_headless_chromium(report_dir: Path, tmp_path: Path) -
     assert float(np.var(grey)) > 1e-3  # a blank page has zero variance
     # the page is mostly light with dark text: both must be present
     assert float((grey < 0.3).mean()) > 0.001 and float((grey > 0.9).mean()) > 0.3
+
+
+@pytest.mark.slow
+def test_demo_reports_state_the_caution_and_the_basis_protocol(demo_cohort) -> None:
+    """The reports of the session's demo run (shared fixture, tests/conftest.py): every scan's
+    page carries the caution and the basis sub-timing with its source (the demo files give no
+    TE1, so the symmetric PRESS assumption is stated), and its fit.json records the same."""
+    scans = sorted((demo_cohort.out / "scans").iterdir())
+    assert len(scans) == 5
+    for folder in scans:
+        page = (folder / "report.html").read_text(encoding="utf-8")
+        assert "not a medical device" in page
+        assert "assumed: TE1 = TE/2" in page
+        doc = json.loads((folder / "fit.json").read_text(encoding="utf-8"))
+        assert doc["protocol"]["timing_sources"] == {"te1_s": "assumed: TE1 = TE/2"}
+        assert doc["protocol"]["te1_s"] == pytest.approx(doc["protocol"]["te_s"] / 2)
+    cohort = (demo_cohort.out / "cohort.html").read_text(encoding="utf-8")
+    assert "not a medical device" in cohort
