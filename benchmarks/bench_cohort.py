@@ -2,7 +2,7 @@
 
 Each configuration runs in a fresh Python process (``--child``) so that its peak resident
 memory, ``resource.getrusage`` of the process itself and of its worker processes (the largest
-child), belongs to that configuration alone. The scans are invented (specproc.batch.synthetic):
+child), belongs to that configuration alone. The scans are invented (specproc.synthetic):
 1024 points, 4 transients, a 5-member basis (NAA, Cr, PCr, GPC, PCh; PRESS, TE 80 ms, 3 T), no
 water reference, so the HLSVD water removal step is switched off. Every scan goes through the
 full per-scan workflow (preprocess, fit, quantify, QC, results.tsv, fit.json, figures,
@@ -45,7 +45,7 @@ def make_cohort(root: Path, n: int) -> None:
     """Write ``n`` invented scans in BIDS layout under ``root``."""
     import numpy as np
 
-    from specproc.batch.synthetic import write_synthetic_cohort
+    from specproc.synthetic import write_synthetic_cohort
 
     write_synthetic_cohort(root, _basis(), n_subjects=n, concentrations=CONC,
                            rng=np.random.default_rng(2026))

@@ -25,12 +25,12 @@ from click.testing import CliRunner
 
 from specproc.basis import simulate_basis
 from specproc.batch import discover_bids, read_manifest, run_batch
-from specproc.batch.synthetic import synthetic_scan, synthetic_water
 from specproc.cli import main
 from specproc.config import load_config
 from specproc.data import Scan
 from specproc.errors import InvalidInputError
 from specproc.io import save
+from specproc.synthetic import synthetic_scan, synthetic_water
 
 MEMBERS = ("NAA", "Cr", "GPC")
 #: Invented truth of the good scans (weights per molecule).

@@ -20,7 +20,6 @@ import pytest
 from click.testing import CliRunner
 
 from specproc.basis import simulate_basis
-from specproc.batch.synthetic import synthetic_scan, synthetic_water
 from specproc.cli import main
 from specproc.constants import WATER_MOLAR_MM
 from specproc.errors import InvalidInputError
@@ -32,6 +31,7 @@ from specproc.phantom import (
     temperature_from_shifts,
     water_shift_at,
 )
+from specproc.synthetic import synthetic_scan, synthetic_water
 
 #: (label, NAA mM, Cr mM, temperature °C) of the invented phantoms, one session each.
 PHANTOMS = (("low", 5.0, 4.0, 21.0), ("mid", 10.0, 8.0, 30.0), ("high", 15.0, 12.0, 41.0))

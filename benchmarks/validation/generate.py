@@ -17,7 +17,7 @@ writes into OUTDIR (created; never commit it):
 What the generator models, and why it is independent of the fit
 ----------------------------------------------------------------
 The generator shares no line-shape, macromolecule, baseline or water code with specproc's fit
-model (``specproc/fit``, the basis macromolecules, ``specproc/batch/synthetic.py``,
+model (``specproc/fit``, the basis macromolecules, ``specproc/synthetic.py``,
 ``demo_spectra/make_demo.py``) and writes its files with plain nibabel (its own minimal
 NIfTI-MRS writer, following the NIfTI-MRS standard, Clarke et al., Magn Reson Med
 2022;88:2358-2370). It uses one part of specproc: the density-matrix engine
