@@ -41,7 +41,7 @@ Signal model of one transient of one coil (time t after the echo, NIfTI-MRS sign
 
 The water reference has the same coils, eddy-current phase and B0 offset and no suppression::
 
-    S_W = K · N_W · [H2O] · Σ_t f_t d_t R_W,t        (N_W = 2, [H2O] = 55.51 mol/L)
+    S_W = K · N_W · [H2O] · Σ_t f_t d_t R_W,t        (N_W = 2, [H2O] = 55.14 mol/L at 37 °C)
 
 with the tissue water contents d_t and water relaxation of :mod:`specproc.quantify`. This is
 the signal model behind the molar formula of Gasparovic et al. (Magn Reson Med
@@ -72,7 +72,7 @@ import numpy as np
 
 from specproc._atomic import write_text
 from specproc.basis import BasisSet, simulate_basis
-from specproc.constants import WATER_MOLAR_MM
+from specproc.constants import WATER_MOLAR_37C_MM, WATER_MOLAR_MM
 from specproc.data import Scan
 from specproc.io import save
 from specproc.quantify import TISSUE_WATER_CONTENT, TISSUES, load_relaxation_times
@@ -235,7 +235,7 @@ def build_scan_pair(
         f = spec["tissue"]
         r_wt = {t_: relax.water[t_].factor(te_s=TE_S, tr_s=TR_S) for t_ in TISSUES}
         total = sum(f[t_] * TISSUE_WATER_CONTENT[t_] * r_wt[t_] for t_ in TISSUES)
-        s_water = SCALE_K * 2.0 * WATER_MOLAR_MM * total
+        s_water = SCALE_K * 2.0 * WATER_MOLAR_37C_MM * total
         # water lines are broader than NAA by the difference of their T2 decay rates
         water_t2_extra_hz = (1.0 / (np.pi * relax.water["gm"].t2_s)
                              - 1.0 / (np.pi * relax.metabolite("NAA").t2_s))
@@ -425,7 +425,7 @@ def make_demo(out_dir: Path) -> dict[str, Any]:
                         "water_te_s": TE_S, "water_tr_s": TR_S, "n_points": N_POINTS,
                         "dwell_s": DWELL_S, "centre_ppm": CENTRE_PPM},
         "water_assumptions": {
-            "water_mm": WATER_MOLAR_MM,
+            "water_mm": WATER_MOLAR_37C_MM,
             "water_protons": 2,
             "tissue_water_content": dict(TISSUE_WATER_CONTENT),
             "water_relaxation": {t_: relax.water[t_].to_dict() for t_ in TISSUES},

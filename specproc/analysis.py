@@ -28,7 +28,9 @@ relaxation overrides), ``preprocessing`` (every step record, transient report, n
 each timing, or null for a basis given by the caller), ``basis`` (origin, members, protons,
 timings, hashes), ``fit`` (:func:`specproc.fit.result_to_dict` without spectra and without the
 full parameter covariance), ``water_amplitude`` (or null), ``quantification``
-(:meth:`specproc.quantify.Quantification.to_dict`: formula and constants), ``qc``
+(:meth:`specproc.quantify.Quantification.to_dict`: formula and constants), ``provenance``
+(:func:`specproc.provenance.physics_provenance`: how many of the spin, relaxation and water
+values used are checked, derived, from memory or overridden, and which), ``qc``
 (:meth:`specproc.qc.QCReport.to_dict`), ``spectrum`` (``ppm``, and the real parts of the
 phased ``data`` and ``fit`` on the fit range, for overlays), ``notes`` and ``outputs`` (file
 names by role). The
@@ -310,9 +312,18 @@ class ScanResult:
             "fit": fit,
             "water_amplitude": self.water_info,
             "quantification": self.quantification.to_dict(),
+            "provenance": self.provenance(),
             "qc": self.qc.to_dict(),
             "notes": list(self.notes),
         })
+
+    def provenance(self) -> dict[str, Any]:
+        """Provenance block of the physics values used: counts of checked, from-memory and
+        overridden values, and which were overridden
+        (:func:`specproc.provenance.physics_provenance`)."""
+        from specproc.provenance import physics_provenance
+
+        return physics_provenance(self.fit.names, self.quantification.constants)
 
     # ------------------------------------------------------------------ display
     def _headline(self) -> list[tuple[str, str]]:
@@ -464,7 +475,7 @@ def analyse_scan(
     config : None, path or mapping, optional
         Configuration (see :func:`resolve_config`): preprocessing, ``[protocol]``, ``[fit]``,
         the QC thresholds ``[qc]`` (with ``crlb_checked``, the metabolites whose bound is
-        checked) and relaxation overrides ``[relaxation]``.
+        checked), relaxation overrides ``[relaxation]`` and the water constants ``[water]``.
     protocol : Protocol, optional
         Basis protocol (default :func:`specproc.protocol.resolve_protocol` of the scan and the
         configuration). With ``basis`` too, the caller says that the basis was simulated for
@@ -490,9 +501,11 @@ def analyse_scan(
     from specproc.quantify import (
         Acquisition,
         Amplitudes,
+        Tissue,
         WaterSignal,
         quantify,
         validate_tissue_fractions,
+        water_settings,
     )
 
     start = time.perf_counter()
@@ -501,6 +514,7 @@ def analyse_scan(
     cfg, cfg_source = resolve_config(config)
     thresholds = QCThresholds.from_config(cfg.get("qc"))
     relaxation_overrides = cfg.get("relaxation") or None
+    water_constants = water_settings(cfg.get("water"))
     tissue_fractions = None if tissue is None else validate_tissue_fractions(tissue)
     label = title if title is not None else _default_title(scan)
     notes: list[str] = []
@@ -544,7 +558,8 @@ def analyse_scan(
         notes.append("tissue fractions were given but no water reference: ratios only")
     quant = quantify(
         Amplitudes.from_fit(fit, used_basis), water=water_signal,
-        tissue=None if water_signal is None else tissue_fractions,
+        tissue=None if water_signal is None or tissue_fractions is None
+        else Tissue(tissue_fractions, **water_constants),
         acquisition=Acquisition.from_scan(pre.scan), relaxation=relaxation_overrides,
     )
     if pre.water is not None and not quant.water_referenced:
@@ -613,6 +628,7 @@ def write_scan_outputs(result: ScanResult, outdir: str | os.PathLike[str]) -> di
     from specproc._atomic import write_bytes, write_text
     from specproc._json import dumps
     from specproc._tsv import tsv_text
+    from specproc.provenance import provenance_rows
     from specproc.report.figures import figure_pdf_bytes, figure_png_bytes
     from specproc.report.fit_figure import plot_fit
     from specproc.report.html import render_report
@@ -663,6 +679,7 @@ def write_scan_outputs(result: ScanResult, outdir: str | os.PathLike[str]) -> di
         links={"fit.json": OUTPUT_FILES["json"], "config.toml": OUTPUT_FILES["config"],
                "results.tsv": OUTPUT_FILES["results"], "fit.pdf": OUTPUT_FILES["figure_pdf"]},
         cfg_source=result.config_source,
+        physics=provenance_rows(document["provenance"]),
     )
     try:
         out.mkdir(parents=True, exist_ok=True)

@@ -45,6 +45,8 @@ __all__ = [
     "ProvenanceItem",
     "override_provenance",
     "parse_provenance",
+    "physics_provenance",
+    "provenance_rows",
     "read_references",
     "summarise",
 ]
@@ -235,3 +237,105 @@ def summarise(items: Iterable[ProvenanceItem]) -> dict[str, Any]:
             i.name for i in items if i.provenance.status == "from memory" and i.kind != "spin"
         ],
     }
+
+
+_KIND_LABELS = {
+    "spin": "chemical shifts and couplings of the basis",
+    "relaxation": "relaxation times (T1, T2)",
+    "water": "water contents and concentrations of pure water",
+}
+
+
+def _record_item(kind: str, name: str, value: Any, raw: Any) -> ProvenanceItem | None:
+    if not isinstance(raw, Mapping) or raw.get("status") not in STATUSES:
+        return None
+    number = float(value) if isinstance(value, int | float) else float("nan")
+    prov = Provenance(
+        status=str(raw["status"]), ref=str(raw.get("ref", "")),
+        citation=str(raw.get("citation", "")), at=str(raw.get("at", "")),
+        note=str(raw.get("note", "")),
+    )
+    return ProvenanceItem(kind, name, number, prov)
+
+
+def physics_provenance(
+    members: Iterable[str], constants: Mapping[str, Any] | None = None
+) -> dict[str, Any]:
+    """The provenance block of one result (``fit.json`` key ``provenance``, the report).
+
+    Parameters
+    ----------
+    members : iterable of str
+        Basis member names of the fit; those defined in ``specproc/data/basis`` (metabolites
+        and macromolecule components) contribute their shifts, couplings, widths and weights.
+    constants : mapping, optional
+        ``Quantification.constants`` (``to_dict()["constants"]``). With water-referenced
+        concentrations it holds the records of the relaxation times, water contents and
+        water concentrations used; without, only the spin values are counted.
+
+    Returns
+    -------
+    dict
+        :func:`summarise` of every value used (``values``, ``by_status``, ``by_kind``,
+        ``overridden``, ``from_memory``) plus ``unknown_members`` (members without a
+        definition, e.g. from a basis file of other origin).
+    """
+    # specproc.spins.systems imports this module: import it here
+    from specproc.spins.systems import load_macromolecules, load_metabolites, provenance_items
+
+    wanted = {str(m).lower(): str(m) for m in members}
+    mets = [m for m in load_metabolites() if m.name.lower() in wanted]
+    mms = [c for c in load_macromolecules() if c.name.lower() in wanted]
+    items = provenance_items(mets, mms)
+    known = {m.name.lower() for m in mets} | {c.name.lower() for c in mms}
+    consts = dict(constants or {})
+    candidates: list[ProvenanceItem | None] = []
+    for tissue, rel in dict(consts.get("water_relaxation") or {}).items():
+        for q in ("t1", "t2"):
+            candidates.append(_record_item(
+                "relaxation", f"water.{tissue} {q.upper()}", rel.get(f"{q}_s"),
+                rel.get(f"{q}_provenance")))
+    for name, rel in dict(consts.get("metabolites") or {}).items():
+        for q in ("t1", "t2"):
+            candidates.append(_record_item(
+                "relaxation", f"{name} {q.upper()}", rel.get(f"{q}_s"),
+                rel.get(f"{q}_provenance")))
+    content = dict(consts.get("water_content") or {})
+    for tissue, raw in dict(consts.get("water_content_provenance") or {}).items():
+        candidates.append(_record_item(
+            "water", f"water content {tissue}", content.get(tissue), raw))
+    values = {"molal": consts.get("water_molal_mm"), "molar": consts.get("water_molar_mm")}
+    for which, raw in dict(consts.get("water_constant_provenance") or {}).items():
+        candidates.append(_record_item(
+            "water", f"pure water ({which} formula)", values.get(which), raw))
+    items += [i for i in candidates if i is not None]
+    block = summarise(items)
+    block["unknown_members"] = sorted(v for k, v in wanted.items() if k not in known)
+    return block
+
+
+def provenance_rows(block: Mapping[str, Any]) -> list[dict[str, str]]:
+    """Short table of a provenance block for a report: rows ``quantity``, ``value``, ``source``.
+
+    One row per kind of value (counts by status), one for the overridden values, one for the
+    relaxation and water values from memory.
+    """
+    def counts(by_status: Mapping[str, int]) -> str:
+        return ", ".join(f"{n} {status}" for status, n in by_status.items())
+
+    files = {"spin": "specproc/data/basis/*.toml", "relaxation": "specproc/data/relaxation.toml",
+             "water": "specproc/constants.py"}
+    rows = [
+        {"quantity": _KIND_LABELS.get(kind, kind), "value": counts(by_status),
+         "source": files.get(kind, "")}
+        for kind, by_status in dict(block.get("by_kind", {})).items()
+    ]
+    overridden = list(block.get("overridden", []))
+    rows.append({"quantity": "overridden by the settings",
+                 "value": ", ".join(overridden) if overridden else "none",
+                 "source": "configuration file / arguments"})
+    memory = list(block.get("from_memory", []))
+    if memory:
+        rows.append({"quantity": "relaxation and water values from memory",
+                     "value": ", ".join(memory), "source": "check before publication"})
+    return rows

@@ -55,3 +55,48 @@ def test_nucleus_table():
     assert frozenset({"1H"}) == SUPPORTED_NUCLEI
     with pytest.raises(InvalidInputError, match="unknown nucleus"):
         get_nucleus("99Xx")
+
+
+# ------------------------------------------------------------------ water (quantification)
+def test_water_molal_concentration_from_the_molar_mass():
+    # 1000 g / M(H2O): IAPWS-95 molar mass 18.015268 g/mol (Wagner & Pruss 2002); the same to
+    # 5 digits from IUPAC standard atomic weights 2 x 1.00794 + 15.9994 = 18.01528 (from memory)
+    from specproc.constants import WATER_MOLAL_MMOL_PER_KG, WATER_MOLAR_MM
+
+    assert WATER_MOLAL_MMOL_PER_KG == pytest.approx(1.0e6 / 18.015268, rel=1e-12)
+    assert WATER_MOLAL_MMOL_PER_KG == pytest.approx(1.0e6 / (2 * 1.00794 + 15.9994), rel=1e-5)
+    assert round(WATER_MOLAL_MMOL_PER_KG / 1000, 2) == 55.51
+    assert WATER_MOLAR_MM == WATER_MOLAL_MMOL_PER_KG  # the former name is the molal value
+
+
+def test_water_molar_concentration_at_37c_is_iapws95():
+    # IAPWS-95 density of liquid water at 310.15 K and 0.101325 MPa through the iapws package
+    # (an independent implementation of the formulation), divided by the molar mass
+    from iapws import IAPWS95
+
+    from specproc.constants import (
+        WATER_DENSITY_37C_KG_PER_L,
+        WATER_MOLAR_37C_MM,
+        WATER_MOLAR_MASS_G_PER_MOL,
+    )
+
+    rho_kg_m3 = IAPWS95(T=310.15, P=0.101325).rho
+    assert WATER_DENSITY_37C_KG_PER_L * 1000 == pytest.approx(rho_kg_m3, abs=0.01)
+    assert WATER_MOLAR_37C_MM == pytest.approx(rho_kg_m3 / WATER_MOLAR_MASS_G_PER_MOL * 1000,
+                                               rel=2e-5)
+    assert round(WATER_MOLAR_37C_MM / 1000, 2) == 55.14
+    # and 25 C gives about 55.35 mol/L (tests/REFERENCES.md): water is denser when colder
+    assert IAPWS95(T=298.15, P=0.101325).rho / WATER_MOLAR_MASS_G_PER_MOL == pytest.approx(
+        55.35, abs=0.01)
+
+
+def test_tissue_water_contents_pinned_with_their_provenance():
+    # Front Neurol 2019;10:1333 (abstract, checked): GM 83.7 %, WM 69.1 %, calibrated to CSF
+    # of about 100 % water
+    from specproc.constants import TISSUE_WATER_CONTENT, TISSUE_WATER_CONTENT_PROVENANCE
+
+    assert TISSUE_WATER_CONTENT == {"gm": 0.837, "wm": 0.691, "csf": 1.0}
+    for tissue, prov in TISSUE_WATER_CONTENT_PROVENANCE.items():
+        assert tissue in TISSUE_WATER_CONTENT
+        assert prov.status == "checked" and "1333" in prov.citation and prov.at
+        assert "0.78" in prov.note  # the range and the other commonly used values are stated

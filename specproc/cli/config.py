@@ -36,7 +36,7 @@ def check(file: Path) -> None:
     from specproc.fit import settings_from_config
     from specproc.preprocess.pipeline import _check_choices
     from specproc.qc import QCThresholds
-    from specproc.quantify import load_relaxation_times
+    from specproc.quantify import load_relaxation_times, water_settings
 
     config = load_config(file)
     try:  # the checks the commands make before any work, so that "valid" means it will run
@@ -45,6 +45,7 @@ def check(file: Path) -> None:
         QCThresholds.from_config(config["qc"])
         if config["relaxation"]:
             load_relaxation_times(3.0, overrides=config["relaxation"])
+        water_settings(config["water"])
     except InvalidInputError as exc:
         raise exc.with_path(file) from None
     click.echo(f"{file}: configuration is valid")

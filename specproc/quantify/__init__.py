@@ -27,9 +27,8 @@ References
 .. [2] Near J, Harris AD, Juchem C, et al. Preprocessing, analysis and quantification in
    single-voxel magnetic resonance spectroscopy: experts' consensus recommendations.
    NMR Biomed 2021;34:e4257.
-.. [3] Ernst T, Kreis R, Ross BD. Absolute quantitation of water and metabolites in the human
-   brain. I. Compartments and water. J Magn Reson B 1993;102:1-8 (tissue water contents
-   GM 0.78, WM 0.65, CSF 0.97 as used by [1]; values from memory).
+.. [3] Tissue water contents and pure-water constants: :mod:`specproc.quantify.water` and
+   :mod:`specproc.constants` (each with its provenance).
 """
 
 from specproc.quantify.inputs import Acquisition, Amplitudes, Tissue, WaterSignal
@@ -52,6 +51,7 @@ from specproc.quantify.water import (
     validate_tissue_fractions,
     water_amplitude,
     water_mole_fractions,
+    water_settings,
 )
 
 __all__ = [
@@ -78,4 +78,5 @@ __all__ = [
     "validate_tissue_fractions",
     "water_amplitude",
     "water_mole_fractions",
+    "water_settings",
 ]

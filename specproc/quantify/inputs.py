@@ -18,7 +18,7 @@ from typing import Any
 
 import numpy as np
 
-from specproc.constants import WATER_MOLAR_MM
+from specproc.constants import WATER_MOLAL_MMOL_PER_KG, WATER_MOLAR_37C_MM
 from specproc.errors import InvalidInputError
 from specproc.quantify.sums import _as_cov
 from specproc.quantify.water import WATER_PROTONS, water_amplitude
@@ -142,10 +142,16 @@ class Tissue:
     fractions : mapping
         GM, WM, CSF volume fractions (keys in any case; sum 1 within ``atol``).
     water_content : mapping or None
-        MR-visible water content per compartment relative to pure water (default
-        :data:`specproc.quantify.TISSUE_WATER_CONTENT`).
-    water_mm : float
-        Molar concentration of pure water, mM.
+        MR-visible water content per compartment relative to pure water at body temperature
+        (default :data:`specproc.constants.TISSUE_WATER_CONTENT`).
+    water_molal_mm : float
+        Molal concentration of pure water, mmol/kg, used by the molal formula (default
+        :data:`specproc.constants.WATER_MOLAL_MMOL_PER_KG`, 55 508).
+    water_molar_mm : float
+        Molar concentration of pure water at the temperature of ``water_content``, mmol/L,
+        used by the molar formula (default :data:`specproc.constants.WATER_MOLAR_37C_MM`,
+        55 138 at 37 °C). :func:`specproc.quantify.water_settings` reads the three from the
+        ``[water]`` configuration.
     water_protons : float
         Protons per water molecule.
     atol : float
@@ -154,6 +160,7 @@ class Tissue:
 
     fractions: Mapping[str, float]
     water_content: Mapping[str, float] | None = None
-    water_mm: float = WATER_MOLAR_MM
+    water_molal_mm: float = WATER_MOLAL_MMOL_PER_KG
+    water_molar_mm: float = WATER_MOLAR_37C_MM
     water_protons: float = WATER_PROTONS
     atol: float = 0.01

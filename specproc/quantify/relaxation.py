@@ -1,5 +1,10 @@
 """Relaxation times (bundled table ``specproc/data/relaxation.toml`` and user overrides) and the
 relaxation attenuation ``R = exp(-TE/T2) * (1 - exp(-TR/T1))``.
+
+Each time of the table carries a provenance record (``t1_provenance``, ``t2_provenance``; see
+:mod:`specproc.provenance`); :class:`Relaxation` keeps the records of the values chosen at the
+scan's field: an interpolated or field-scaled value is ``derived`` from its records (or stays
+``from memory`` when one of them is), an overridden one is ``override``.
 """
 
 from __future__ import annotations
@@ -8,11 +13,17 @@ import math
 import os
 import tomllib
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
 from specproc.errors import InvalidInputError
+from specproc.provenance import (
+    Provenance,
+    override_provenance,
+    parse_provenance,
+    read_references,
+)
 from specproc.quantify._common import TISSUES, _json_number, _positive
 
 __all__ = [
@@ -45,12 +56,16 @@ class Relaxation:
         Citation or origin of the values.
     note : str
         How the values were chosen (tabulated field, interpolation, default, override).
+    t1_provenance, t2_provenance : Provenance or None
+        Where each time comes from (None: no record, e.g. built in code).
     """
 
     t1_s: float
     t2_s: float
     source: str = ""
     note: str = ""
+    t1_provenance: Provenance | None = None
+    t2_provenance: Provenance | None = None
 
     def factor(self, *, te_s: float, tr_s: float) -> float:
         """Attenuation ``exp(-TE/T2)·(1 - exp(-TR/T1))`` (see :func:`relaxation_factor`)."""
@@ -58,12 +73,17 @@ class Relaxation:
 
     def to_dict(self) -> dict[str, Any]:
         """Plain dict (JSON-serialisable; infinite times as ``None``)."""
-        return {
+        out: dict[str, Any] = {
             "t1_s": _json_number(self.t1_s),
             "t2_s": _json_number(self.t2_s),
             "source": self.source,
             "note": self.note,
         }
+        for key, prov in (("t1_provenance", self.t1_provenance),
+                          ("t2_provenance", self.t2_provenance)):
+            if prov is not None:
+                out[key] = prov.to_dict()
+        return out
 
 
 @dataclass(frozen=True)
@@ -107,10 +127,10 @@ class RelaxationTimes:
         if target is not None and target.lower() in by_lower:
             rel = self.metabolites[by_lower[target.lower()]]
             note = f"{rel.note}; values of {target} (alias)".strip("; ")
-            return Relaxation(rel.t1_s, rel.t2_s, rel.source, note)
+            return replace(rel, note=note)
         d = self.default
         note = f"{d.note}; default (no entry for {name})".strip("; ")
-        return Relaxation(d.t1_s, d.t2_s, d.source, note)
+        return replace(d, note=note)
 
     def to_dict(self) -> dict[str, Any]:
         """Plain dict (JSON-serialisable)."""
@@ -124,37 +144,65 @@ class RelaxationTimes:
         }
 
 
+_WEAK = ("from memory", "common practice", "override")
+
+
+def _combined(records: Sequence[Provenance | None], how: str) -> Provenance:
+    """Record of a value computed from tabulated values (interpolation, field scaling)."""
+    known = [r for r in records if r is not None]
+    weak = [r.status for r in known if r.status in _WEAK] or (
+        ["from memory"] if len(known) < len(records) else []
+    )
+    status = weak[0] if weak else "derived"
+    sources = "; ".join(dict.fromkeys(f"{r.ref or r.at} ({r.status})" for r in known))
+    return Provenance(status=status, ref=known[0].ref if known else "",
+                      citation=known[0].citation if known else "",
+                      at=f"{how} from: {sources}" if sources else how)
+
+
+def _note_on(prov: Provenance | None, note: str) -> Provenance | None:
+    if prov is None:
+        return None
+    return replace(prov, note=f"{prov.note}; {note}" if prov.note else note)
+
+
 def _pick_quantity(
     entries: Sequence[Mapping[str, Any]], quantity: str, field_t: float
-) -> tuple[float, str, str, float | None] | None:
+) -> tuple[float, str, str, float | None, Provenance | None] | None:
     """Value of ``quantity`` at ``field_t`` from per-field entries.
 
-    Returns (value, source, note, nearest field when outside the tabulated range or None).
+    Returns (value, source, note, nearest field when outside the tabulated range or None,
+    provenance record of the value).
     """
-    points: dict[float, tuple[float, str]] = {}
+    prov_key = quantity.replace("_s", "_provenance")
+    points: dict[float, tuple[float, str, Provenance | None]] = {}
     for e in entries:
         if quantity in e:
-            points[float(e["field_t"])] = (float(e[quantity]), str(e.get("source", "")))
+            points[float(e["field_t"])] = (
+                float(e[quantity]), str(e.get("source", "")), e.get(prov_key))
     if not points:
         return None
     fields = sorted(points)
     nearest = min(fields, key=lambda b: abs(b - field_t))
     if abs(nearest - field_t) <= _FIELD_SNAP_T:
-        value, source = points[nearest]
-        return value, source, f"{quantity} tabulated at {nearest:g} T", None
+        value, source, prov = points[nearest]
+        return value, source, f"{quantity} tabulated at {nearest:g} T", None, prov
     if field_t < fields[0] or field_t > fields[-1]:
-        value, source = points[nearest]
+        value, source, prov = points[nearest]
         where = (
             f"only tabulated at {nearest:g} T" if len(fields) == 1
             else f"outside the tabulated range {fields[0]:g}-{fields[-1]:g} T"
         )
-        return value, source, f"{quantity} from the nearest tabulated field ({where})", nearest
+        note = f"{quantity} from the nearest tabulated field ({where})"
+        return value, source, note, nearest, _note_on(prov, f"used at {field_t:g} T")
     lo = max(b for b in fields if b < field_t)
     hi = min(b for b in fields if b > field_t)
     w = (field_t - lo) / (hi - lo)
     value = (1 - w) * points[lo][0] + w * points[hi][0]
     source = "; ".join(dict.fromkeys([points[lo][1], points[hi][1]]))
-    return value, source, f"{quantity} interpolated linearly between {lo:g} T and {hi:g} T", None
+    how = f"interpolated linearly between {lo:g} T and {hi:g} T"
+    prov = _combined([points[lo][2], points[hi][2]], how)
+    return value, source, f"{quantity} {how}", None, prov
 
 
 def _resolve_entry(
@@ -172,6 +220,7 @@ def _resolve_entry(
     ``T(B) = T(B_near) · T_default(B) / T_default(B_near)``.
     """
     values: dict[str, float] = {}
+    records: dict[str, Provenance | None] = {}
     sources: list[str] = []
     notes: list[str] = []
     for quantity in ("t1_s", "t2_s"):
@@ -181,10 +230,11 @@ def _resolve_entry(
             if own is None:
                 raise InvalidInputError(f"{where}: no {quantity} at any field strength", path)
             values[quantity] = own[0]
+            records[quantity] = own[4]
             sources.append(own[1])
             notes.append(f"{quantity} from the default ({own[2]})")
             continue
-        value, source, note, nearest = picked
+        value, source, note, nearest, prov = picked
         if nearest is not None and fallback is not None:
             d_here = _pick_quantity(fallback, quantity, field_t)
             d_near = _pick_quantity(fallback, quantity, nearest)
@@ -194,23 +244,42 @@ def _resolve_entry(
                     f"{note}; carried from {nearest:g} T to {field_t:g} T with the field "
                     "dependence of the default (assumption)"
                 )
+                prov = _combined(
+                    [prov, d_here[4], d_near[4]],
+                    f"carried from {nearest:g} T to {field_t:g} T with the field dependence "
+                    "of the default",
+                )
         elif nearest is not None:
             note = f"{note}; value of {nearest:g} T used unchanged"
         values[quantity] = value
+        records[quantity] = prov
         sources.append(source)
         notes.append(note)
+    if not any(sources):
+        sources = [r.citation or r.at for r in records.values() if r is not None]
     source = "; ".join(dict.fromkeys(s for s in sources if s))
-    return Relaxation(values["t1_s"], values["t2_s"], source, "; ".join(notes))
+    return Relaxation(values["t1_s"], values["t2_s"], source, "; ".join(notes),
+                      records["t1_s"], records["t2_s"])
 
 
-def _check_entries(raw: Any, where: str, path: Path) -> list[dict[str, Any]]:
+_ENTRY_KEYS = {"field_t", "t1_s", "t2_s", "source", "t1_provenance", "t2_provenance"}
+
+
+def _check_entries(
+    raw: Any, where: str, path: Path, references: Mapping[str, str]
+) -> list[dict[str, Any]]:
+    """Checked copies of per-field entries, with their provenance records parsed.
+
+    A time without a record (a table of an older layout) gets a ``from memory`` record naming
+    the entry's ``source``.
+    """
     if not isinstance(raw, list) or not raw:
         raise InvalidInputError(f"{where} must be a non-empty list of tables", path)
     out = []
     for i, e in enumerate(raw):
         if not isinstance(e, dict):
             raise InvalidInputError(f"{where}[{i}] must be a table", path)
-        unknown = set(e) - {"field_t", "t1_s", "t2_s", "source"}
+        unknown = set(e) - _ENTRY_KEYS
         if unknown:
             raise InvalidInputError(f"{where}[{i}]: unknown keys {sorted(unknown)}", path)
         if "field_t" not in e:
@@ -218,7 +287,19 @@ def _check_entries(raw: Any, where: str, path: Path) -> list[dict[str, Any]]:
         for key in ("field_t", "t1_s", "t2_s"):
             if key in e:
                 _positive(e[key], f"{where}[{i}].{key}", path)
-        out.append(e)
+        entry = dict(e)
+        for quantity in ("t1_s", "t2_s"):
+            key = quantity.replace("_s", "_provenance")
+            label = f"{where}[{i}] {quantity} at {float(e['field_t']):g} T"
+            if key in e:
+                if quantity not in e:
+                    raise InvalidInputError(f"{label}: {key} without {quantity}", path)
+                entry[key] = parse_provenance(e[key], references, label, path)
+            elif quantity in e:
+                entry[key] = Provenance(
+                    status="from memory", at=str(e.get("source", "")) or "no record"
+                )
+        out.append(entry)
     return out
 
 
@@ -244,11 +325,13 @@ def _apply_override(base: Relaxation, raw: Any, where: str, path: Path | None) -
     t2 = _positive(raw["t2_s"], f"{where}.t2_s", path) if "t2_s" in raw else base.t2_s
     changed = [k for k in ("t1_s", "t2_s") if k in raw]
     source = str(raw.get("source", "user override"))
+    p1 = override_provenance(source) if "t1_s" in raw else base.t1_provenance
+    p2 = override_provenance(source) if "t2_s" in raw else base.t2_provenance
     if len(changed) == 2:
-        return Relaxation(t1, t2, source, "user override")
+        return Relaxation(t1, t2, source, "user override", p1, p2)
     return Relaxation(
         t1, t2, f"{base.source}; {changed[0]}: {source}" if changed else base.source,
-        f"{base.note}; {', '.join(changed)} user override" if changed else base.note,
+        f"{base.note}; {', '.join(changed)} user override" if changed else base.note, p1, p2,
     )
 
 
@@ -295,17 +378,18 @@ def load_relaxation_times(
     field_t = _positive(field_t, "field_t", None)
     table_path = RELAXATION_FILE if path is None else Path(path)
     raw = _read_toml(table_path)
-    unknown = set(raw) - {"schema", "water", "metabolite", "default", "aliases"}
+    unknown = set(raw) - {"schema", "references", "water", "metabolite", "default", "aliases"}
     if unknown:
         raise InvalidInputError(f"unknown top-level keys {sorted(unknown)}", table_path)
-    default_entries = _check_entries(raw.get("default"), "default", table_path)
+    refs = read_references(raw, table_path)
+    default_entries = _check_entries(raw.get("default"), "default", table_path, refs)
     default = _resolve_entry(default_entries, field_t, None, "default", table_path)
     water_raw = raw.get("water")
     if not isinstance(water_raw, dict) or set(water_raw) != set(TISSUES):
         raise InvalidInputError("[water] must have exactly the tissues gm, wm, csf", table_path)
     water = {
         t: _resolve_entry(
-            _check_entries(water_raw[t], f"water.{t}", table_path), field_t, None,
+            _check_entries(water_raw[t], f"water.{t}", table_path, refs), field_t, None,
             f"water.{t}", table_path,
         )
         for t in TISSUES
@@ -315,7 +399,7 @@ def load_relaxation_times(
         raise InvalidInputError("[metabolite] must be a table of metabolites", table_path)
     metabolites = {
         name: _resolve_entry(
-            _check_entries(entries, f"metabolite.{name}", table_path), field_t,
+            _check_entries(entries, f"metabolite.{name}", table_path, refs), field_t,
             default_entries, f"metabolite.{name}", table_path,
         )
         for name, entries in metab_raw.items()

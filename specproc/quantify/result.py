@@ -200,7 +200,7 @@ def quantify(
     ...              tissue={"gm": 0.6, "wm": 0.3, "csf": 0.1},
     ...              acquisition=Acquisition(te_s=0.030, tr_s=2.0, field_t=3.0))
     >>> round(q.conc_molar_mm["tNAA"], 2), round(q.conc_molal_mmol_kg["tNAA"], 2)
-    (31.9, 43.3)
+    (33.85, 43.23)
     """
     amps_in = amplitudes if isinstance(amplitudes, Amplitudes) else Amplitudes.from_mapping(
         amplitudes, per_molecule=True)
@@ -323,7 +323,8 @@ def quantify(
         water_tr_s=water.tr_s,
         water_protons=tissue.water_protons,
         water_content=tissue.water_content,
-        water_mm=tissue.water_mm,
+        water_molal_mm=tissue.water_molal_mm,
+        water_molar_mm=tissue.water_molar_mm,
         fraction_atol=tissue.atol,
     )
     water_protons = tissue.water_protons

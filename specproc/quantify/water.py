@@ -5,9 +5,13 @@ References
 ----------
 .. [1] Gasparovic C, Song T, Devier D, et al. Use of tissue water as a concentration reference
    for proton spectroscopic imaging. Magn Reson Med 2006;55:1219-1226.
-.. [2] Ernst T, Kreis R, Ross BD. Absolute quantitation of water and metabolites in the human
-   brain. I. Compartments and water. J Magn Reson B 1993;102:1-8 (tissue water contents
-   GM 0.78, WM 0.65, CSF 0.97 as used by [1]; values from memory).
+.. [2] A single-scan, rapid whole-brain protocol for quantitative water content mapping with
+   neurobiological implications. Front Neurol 2019;10:1333 (tissue water contents GM 0.837,
+   WM 0.691 relative to CSF of about 100 % water, 3 T; the defaults, see
+   :data:`specproc.constants.TISSUE_WATER_CONTENT`).
+.. [3] Ernst T, Kreis R, Ross BD. Absolute quantitation of water and metabolites in the human
+   brain. I. Compartments and water. J Magn Reson B 1993;102:1-8 (GM 0.78, WM 0.65, CSF 0.97 as
+   used by [1]; from memory).
 """
 
 from __future__ import annotations
@@ -18,7 +22,14 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from specproc.constants import WATER_MOLAR_MM
+from specproc.constants import (
+    TISSUE_WATER_CONTENT,
+    TISSUE_WATER_CONTENT_PROVENANCE,
+    WATER_CONSTANT_PROVENANCE,
+    WATER_MOLAL_MMOL_PER_KG,
+    WATER_MOLAR_37C_MM,
+    WATER_MOLAR_MM,
+)
 from specproc.errors import InvalidInputError
 from specproc.quantify._common import TISSUES, _positive
 from specproc.quantify.relaxation import (
@@ -38,37 +49,31 @@ __all__ = [
     "validate_tissue_fractions",
     "water_amplitude",
     "water_mole_fractions",
+    "water_settings",
 ]
 
 
-#: MR-visible water content of each compartment relative to pure water (GM 0.78, WM 0.65,
-#: CSF 0.97): Ernst, Kreis & Ross, J Magn Reson B 1993;102:1-8, the values used by Gasparovic
-#: et al. 2006 (from memory).
-TISSUE_WATER_CONTENT: Mapping[str, float] = {"gm": 0.78, "wm": 0.65, "csf": 0.97}
-
-#: Citation of :data:`TISSUE_WATER_CONTENT`.
-TISSUE_WATER_CONTENT_SOURCE = (
-    "Ernst T, Kreis R, Ross BD. J Magn Reson B 1993;102:1-8, as used by Gasparovic et al., "
-    "Magn Reson Med 2006;55:1219-1226 (from memory)"
-)
+#: Citation of :data:`specproc.constants.TISSUE_WATER_CONTENT` (the default water contents).
+TISSUE_WATER_CONTENT_SOURCE = TISSUE_WATER_CONTENT_PROVENANCE["gm"].citation + " (checked)"
 
 #: Number of 1H nuclei of a water molecule.
 WATER_PROTONS: int = 2
 
 _MOLAL_FORMULA = (
     "[M]_molal = (S_M / S_W) * (N_W / N_M) * (a_GM*R_W,GM + a_WM*R_W,WM + a_CSF*R_W,CSF)"
-    " / ((1 - a_CSF) * R_M) * [H2O];  a_t = f_t*d_t / (f_GM*d_GM + f_WM*d_WM + f_CSF*d_CSF)"
+    " / ((1 - a_CSF) * R_M) * [H2O]_molal;  a_t = f_t*d_t / (f_GM*d_GM + f_WM*d_WM + f_CSF*d_CSF)"
 )
 _MOLAR_FORMULA = (
     "[M]_molar = (S_M / S_W) * (N_W / N_M) * (f_GM*d_GM*R_W,GM + f_WM*d_WM*R_W,WM"
-    " + f_CSF*d_CSF*R_W,CSF) / ((1 - f_CSF) * R_M) * [H2O]"
+    " + f_CSF*d_CSF*R_W,CSF) / ((1 - f_CSF) * R_M) * [H2O]_molar"
 )
 _SYMBOLS = (
     "S_M, S_W: metabolite and water signal areas; N_M, N_W = 2: their numbers of protons; "
     "f_t: tissue volume fractions (GM, WM, CSF; sum 1); d_t: MR-visible water content of each "
     "tissue relative to pure water; a_t: water mole fractions; R_W,t: relaxation attenuation of "
     "water in tissue t (water TE/TR); R_M: that of the metabolite (metabolite TE/TR); "
-    "[H2O] = 55.51 mol/kg = 55.51 mol/L (pure water, density taken as 1 kg/L)"
+    "[H2O]_molal = 55.51 mol/kg (1000 g / M(H2O)); [H2O]_molar = 55.14 mol/L (pure water at "
+    "37 C, IAPWS-95 density); d_t relative to pure water at body temperature"
 )
 
 
@@ -157,7 +162,8 @@ def concentration_factors(
     water_tr_s: float | None = None,
     water_protons: float = WATER_PROTONS,
     water_content: Mapping[str, float] | None = None,
-    water_mm: float = WATER_MOLAR_MM,
+    water_molal_mm: float = WATER_MOLAL_MMOL_PER_KG,
+    water_molar_mm: float = WATER_MOLAR_37C_MM,
     fraction_atol: float = 0.01,
 ) -> tuple[dict[str, float], dict[str, float], dict[str, Any]]:
     """Multipliers turning each metabolite amplitude into molar and molal concentrations.
@@ -192,10 +198,15 @@ def concentration_factors(
     water_protons : float
         Protons per water molecule, N_W = 2.
     water_content : mapping, optional
-        Relative MR-visible water content d_t (default :data:`TISSUE_WATER_CONTENT`).
-    water_mm : float
-        Concentration of pure water, mM (mmol/L) = mmol/kg: 55 510 (55.51 mol/L,
-        :data:`specproc.constants.WATER_MOLAR_MM`).
+        Relative MR-visible water content d_t, relative to pure water at body temperature
+        (default :data:`specproc.constants.TISSUE_WATER_CONTENT`).
+    water_molal_mm : float
+        Molal concentration of pure water, mmol/kg, for the molal formula: 55 508
+        (:data:`specproc.constants.WATER_MOLAL_MMOL_PER_KG`).
+    water_molar_mm : float
+        Molar concentration of pure water at the temperature ``water_content`` refers to,
+        mmol/L, for the molar formula: 55 138 at 37 °C
+        (:data:`specproc.constants.WATER_MOLAR_37C_MM`).
     fraction_atol : float
         Tolerance of the sum of the volume fractions.
 
@@ -230,12 +241,14 @@ def concentration_factors(
         {(1 - f_{CSF})\\, R_M}\\,[\\mathrm{H_2O}]
 
     where ``R = exp(-TE/T2)(1 - exp(-TR/T1))``, water at the water TE/TR and metabolites at the
-    metabolite TE/TR; [H2O] = 55.51 mol/kg (= mol/L taking the density of water as 1 kg/L).
-    Both follow from counting molecules: the water signal is
-    ``S_W ∝ N_W·V·[H2O]·Σ f_t d_t R_W,t`` and the metabolite signal ``S_M ∝ N_M·n_M·R_M``
-    with the metabolite only in GM and WM; dividing the moles ``n_M`` by the tissue volume
-    ``V(1 - f_CSF)`` gives the molar form, by the tissue-water mass
-    ``V(f_GM d_GM + f_WM d_WM)·1 kg/L`` the molal form.
+    metabolite TE/TR. [H2O] is 55.51 mol/kg in the molal formula and 55.14 mol/L (37 °C) in
+    the molar one. Both follow from counting molecules: the voxel holds
+    ``n_W = V·[H2O]_molar·Σ f_t d_t`` moles of MR-visible water, so
+    ``S_W ∝ N_W·n_W·(Σ f_t d_t R_W,t / Σ f_t d_t)`` and ``S_M ∝ N_M·n_M·R_M`` with the
+    metabolite only in GM and WM; dividing the moles ``n_M`` by the tissue volume
+    ``V(1 - f_CSF)`` gives the molar form; dividing them by the mass of the GM+WM water,
+    ``V·[H2O]_molar·(f_GM d_GM + f_WM d_WM)·M(H2O)``, gives the molal form, in which
+    ``[H2O]_molar`` cancels and ``1/M(H2O)`` = 55.51 mol/kg remains (docs/quantification.md).
     """
     s_w = _positive(water_amplitude, "water amplitude", None)
     if water_proton_normalised:
@@ -274,9 +287,9 @@ def concentration_factors(
                 )
             n_m = _positive(protons[name], f"protons of {name}", None)
             per_proton = 1.0 / n_m
-        base = per_proton * float(water_protons) / s_w / r_m * float(water_mm)
-        molar[name] = base * water_term_molar
-        molal[name] = base * water_term_molal
+        base = per_proton * float(water_protons) / s_w / r_m
+        molar[name] = base * water_term_molar * float(water_molar_mm)
+        molal[name] = base * water_term_molal * float(water_molal_mm)
         metab_consts[name] = {**rel.to_dict(), "relaxation_factor": r_m, "protons": n_m}
     constants = {
         "water_amplitude": float(water_amplitude),
@@ -284,8 +297,18 @@ def concentration_factors(
         "water_proton_normalised": bool(water_proton_normalised),
         "metabolite_proton_normalised": bool(proton_normalised),
         "water_protons": float(water_protons),
-        "water_mm": float(water_mm),
-        "water_mm_note": "pure water 55.51 mol/L (= 55.51 mol/kg, density taken as 1 kg/L)",
+        "water_molal_mm": float(water_molal_mm),
+        "water_molar_mm": float(water_molar_mm),
+        "water_mm_note": (
+            "pure water: water_molal_mm (mmol/kg) in the molal formula, water_molar_mm "
+            "(mmol/L at the temperature of the water contents) in the molar formula"
+        ),
+        "water_constant_provenance": {
+            "molal": _record(water_molal_mm, WATER_MOLAL_MMOL_PER_KG,
+                             WATER_CONSTANT_PROVENANCE["molal"]),
+            "molar": _record(water_molar_mm, WATER_MOLAR_37C_MM,
+                             WATER_CONSTANT_PROVENANCE["molar_37c"]),
+        },
         "te_s": float(te_s),
         "tr_s": float(tr_s),
         "water_te_s": float(w_te),
@@ -294,8 +317,14 @@ def concentration_factors(
         "volume_fractions": f,
         "water_content": d,
         "water_content_source": (
-            TISSUE_WATER_CONTENT_SOURCE if water_content is None else "user supplied"
+            TISSUE_WATER_CONTENT_SOURCE
+            if all(math.isclose(d[t], TISSUE_WATER_CONTENT[t], rel_tol=1e-6) for t in TISSUES)
+            else "user supplied"
         ),
+        "water_content_provenance": {
+            t: _record(d[t], TISSUE_WATER_CONTENT[t], TISSUE_WATER_CONTENT_PROVENANCE[t])
+            for t in TISSUES
+        },
         "water_mole_fractions": alpha,
         "water_relaxation": {
             t: {**water_relaxation[t].to_dict(), "relaxation_factor": r_w[t]} for t in TISSUES
@@ -306,6 +335,49 @@ def concentration_factors(
     }
     return molar, molal, constants
 
+
+
+def water_settings(section: Mapping[str, Any] | None) -> dict[str, Any]:
+    """Keyword arguments of :func:`concentration_factors` from the ``[water]`` configuration.
+
+    Parameters
+    ----------
+    section : mapping or None
+        ``{"content": {"gm": .., "wm": .., "csf": ..}, "molal_mmol_per_kg": ..,
+        "molar_mm": ..}`` (any key may be missing: its default is used).
+
+    Returns
+    -------
+    dict
+        ``water_content``, ``water_molal_mm``, ``water_molar_mm``.
+
+    Raises
+    ------
+    InvalidInputError
+        Unknown keys, water contents outside (0, 1] or non-positive concentrations.
+    """
+    raw = dict(section or {})
+    unknown = sorted(set(raw) - {"content", "molal_mmol_per_kg", "molar_mm"})
+    if unknown:
+        raise InvalidInputError(f"[water]: unknown keys {unknown}")
+    return {
+        "water_content": _water_content(raw.get("content", TISSUE_WATER_CONTENT)),
+        "water_molal_mm": _positive(raw.get("molal_mmol_per_kg", WATER_MOLAL_MMOL_PER_KG),
+                                    "[water] molal_mmol_per_kg", None),
+        "water_molar_mm": _positive(raw.get("molar_mm", WATER_MOLAR_37C_MM),
+                                    "[water] molar_mm", None),
+    }
+
+
+def _record(value: float, default: float, provenance: Any) -> dict[str, Any]:
+    """Provenance dict of a water constant: its own record, or an override when changed.
+
+    A value within 1e-6 (relative) of the default counts as the default (the configuration
+    file prints the constants rounded).
+    """
+    if math.isclose(float(value), float(default), rel_tol=1e-6):
+        return dict(provenance.to_dict())
+    return {"status": "override", "at": f"user value {float(value):g} (default {default:g})"}
 
 
 def _water_content(water_content: Mapping[str, float] | None) -> dict[str, float]:
@@ -350,7 +422,9 @@ def solution_concentration_mm(
     metabolite_relaxation, water_relaxation : float
         Relaxation attenuations R (:func:`specproc.quantify.relaxation_factor`; 1: none).
     water_mm : float
-        Water concentration of the solution, mM (default pure water).
+        Water concentration of the solution, mmol/L (default :data:`WATER_MOLAR_MM`, the
+        former name of the molal 55 508; a solution at temperature T holds its density / M(H2O),
+        e.g. 55 345 at 25 °C: give it for a phantom).
     water_protons : float
         Protons per water molecule.
     """
