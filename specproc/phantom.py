@@ -505,7 +505,7 @@ def analyse_phantom(
     protocol = None
     if basis is None:
         protocol = resolve_protocol(scan, config=cfg, metabolites=list(phantom.concentrations_mm),
-                                    macromolecules=False)
+                                    phantom=True)
     result = analyse_scan(scan, water, basis=basis, protocol=protocol, config=cfg)
     pre, fit = result.preprocessing, result.fit
     notes: list[str] = []

@@ -31,7 +31,7 @@ Macromolecules
 --------------
 Unless chosen explicitly, the macromolecule components are added when TE is below
 :data:`SHORT_TE_S` (common practice: macromolecule signals are visible at short TE and decay
-by TE ≈ 60 ms or so).
+by TE ≈ 60 ms or so), and never for a phantom (:data:`PHANTOM_RULE`).
 """
 
 from __future__ import annotations
@@ -45,6 +45,7 @@ from specproc.errors import InvalidInputError
 
 __all__ = [
     "MACROMOLECULE_RULE",
+    "PHANTOM_RULE",
     "SHORT_TE_S",
     "TIMINGS_HEADER_KEY",
     "TIMING_KEYS",
@@ -59,6 +60,9 @@ SHORT_TE_S = 0.06
 
 #: The macromolecule rule in words (for reports and help texts).
 MACROMOLECULE_RULE = f"included when TE < {SHORT_TE_S * 1e3:g} ms (common practice)"
+
+#: The rule for a phantom (a solution holds no macromolecules).
+PHANTOM_RULE = "none in a phantom (a solution holds no macromolecules)"
 
 #: NIfTI-MRS header user key holding the sub-timings.
 TIMINGS_HEADER_KEY = "specproc_timings"
@@ -240,6 +244,7 @@ def resolve_protocol(
     config: Mapping[str, Any] | None = None,
     metabolites: Sequence[str] | None = None,
     macromolecules: bool | None = None,
+    phantom: bool = False,
 ) -> Protocol:
     """The basis protocol of a scan.
 
@@ -259,6 +264,8 @@ def resolve_protocol(
         Members (default: ``[fit] members`` of ``config`` when not empty, else all).
     macromolecules : bool, optional
         Add the macromolecule components (default: the rule, TE < :data:`SHORT_TE_S`).
+    phantom : bool
+        The scan is of a phantom: no macromolecules unless ``macromolecules`` says so.
 
     Raises
     ------
@@ -320,7 +327,9 @@ def resolve_protocol(
     if metabolites is None and config is not None:
         members = list((config.get("fit") or {}).get("members") or [])
         metabolites = members or None
-    if macromolecules is None:
+    if macromolecules is None and phantom:
+        macromolecules, mm_source = False, PHANTOM_RULE
+    elif macromolecules is None:
         macromolecules = te is not None and te < SHORT_TE_S
         mm_source = MACROMOLECULE_RULE
     else:

@@ -21,7 +21,7 @@ from specproc.config import load_config, merge_config
 from specproc.data import Scan
 from specproc.errors import InvalidInputError
 from specproc.io import load, save
-from specproc.protocol import MACROMOLECULE_RULE, SHORT_TE_S, resolve_protocol
+from specproc.protocol import MACROMOLECULE_RULE, PHANTOM_RULE, SHORT_TE_S, resolve_protocol
 
 MHZ = 123.2
 
@@ -71,6 +71,9 @@ def test_macromolecule_rule_and_members_from_the_config():
     assert resolve_protocol(_scan(te_s=SHORT_TE_S - 1e-3)).macromolecules is True
     long_te = resolve_protocol(_scan(te_s=SHORT_TE_S))
     assert long_te.macromolecules is False and long_te.macromolecule_source == MACROMOLECULE_RULE
+    phantom = resolve_protocol(_scan(), phantom=True)
+    assert phantom.macromolecules is False and phantom.macromolecule_source == PHANTOM_RULE
+    assert resolve_protocol(_scan(), phantom=True, macromolecules=True).macromolecules is True
     chosen = resolve_protocol(_scan(), macromolecules=False)
     assert chosen.macromolecules is False and chosen.macromolecule_source == "chosen"
     cfg = merge_config({"fit": {"members": ["NAA", "Cr"]}})

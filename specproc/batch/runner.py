@@ -134,10 +134,9 @@ def _prepare(entries: Sequence[ScanEntry], *, config: Mapping[str, Any], config_
             inputs["scan_sha256"] = file_sha256(entry.scan_path)
             inputs["water_sha256"] = file_sha256(entry.water_path)
             scan = apply_overrides(load(entry.scan_path), entry.overrides)
-            # a phantom has no macromolecules (unless the caller asks for them)
-            mm = False if entry.is_phantom and macromolecules is None else macromolecules
             protocol = resolve_protocol(scan, manifest=entry.timings, config=config,
-                                        metabolites=metabolites, macromolecules=mm)
+                                        metabolites=metabolites, macromolecules=macromolecules,
+                                        phantom=entry.is_phantom)
             del scan
         except Exception as exc:  # recorded as a failed scan
             yield _Prepared(entry, inputs, None, failure_reason(exc))
