@@ -1,17 +1,21 @@
 """Crash-safe file writes: write to a temporary file beside the target, then rename.
 
 A crash or an error never leaves a partial output file under the target name.
+:func:`write_folder` does the same for a set of files: all are written into a temporary folder
+beside the target folder first, so a full disk or a read-only folder fails before any target
+file changes.
 """
 
 from __future__ import annotations
 
 import contextlib
 import os
+import shutil
 import tempfile
-from collections.abc import Iterator
+from collections.abc import Iterable, Iterator, Mapping
 from pathlib import Path
 
-__all__ = ["atomic_path", "write_bytes", "write_text"]
+__all__ = ["atomic_path", "write_bytes", "write_folder", "write_text"]
 
 
 def _read_umask() -> int:
@@ -63,3 +67,55 @@ def write_bytes(path: str | os.PathLike[str], content: bytes) -> None:
 def write_text(path: str | os.PathLike[str], text: str) -> None:
     """Write UTF-8 ``text`` to ``path`` atomically."""
     write_bytes(path, text.encode("utf-8"))
+
+
+def write_folder(folder: str | os.PathLike[str], files: Mapping[str, bytes], *,
+                 owned: Iterable[str] = ()) -> dict[str, Path]:
+    """Write several files into ``folder`` so that either all of them change or none does.
+
+    The files are written into a temporary folder beside ``folder`` (same file system). A
+    missing ``folder`` is then created by renaming the temporary folder; an existing one gets
+    each file by a rename (its other files are left alone, except the names in ``owned`` that
+    are not written this time, which are removed as stale outputs of an earlier run).
+
+    Parameters
+    ----------
+    folder : path
+        Target folder.
+    files : mapping of str to bytes
+        File name (no folders) to content.
+    owned : iterable of str
+        Names this writer owns in ``folder``.
+
+    Returns
+    -------
+    dict of str to Path
+        The target path of each name of ``files``.
+
+    Raises
+    ------
+    OSError
+        When the temporary folder cannot be written (the target folder is then unchanged and
+        no temporary folder is left).
+    """
+    target = Path(folder)
+    target.parent.mkdir(parents=True, exist_ok=True)
+    staging = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".partial",
+                                    dir=target.parent))
+    try:
+        os.chmod(staging, 0o777 & ~_UMASK)
+        for name, content in files.items():
+            path = staging / name
+            path.write_bytes(content)
+            os.chmod(path, 0o666 & ~_UMASK)
+        if not target.exists():
+            os.rename(staging, target)
+        else:
+            for name in files:
+                os.replace(staging / name, target / name)
+            for name in set(owned) - set(files):
+                with contextlib.suppress(FileNotFoundError):
+                    (target / name).unlink()
+    finally:
+        shutil.rmtree(staging, ignore_errors=True)
+    return {name: target / name for name in files}

@@ -375,6 +375,7 @@ def _ms_text(value_s: float) -> str:
 def input_notes(scan: Any, water: Any, basis: Any, water_processed: Any = None) -> list[str]:
     """Warnings about the inputs of one analysis, as sentences (empty when all is well).
 
+    * What the reader did to the samples (:func:`specproc.io.reader_notes`: intensity scaling).
     * Header values replaced by an option or a manifest column (``HeaderOverrides`` in the
       header, written by :func:`specproc.batch.task.apply_overrides`).
     * A basis whose sequence, field strength or TE differs from the scan's header.
@@ -390,9 +391,10 @@ def input_notes(scan: Any, water: Any, basis: Any, water_processed: Any = None) 
     water_processed : Scan, optional
         The preprocessed water reference (one FID), used for the dominance check.
     """
+    from specproc.io import reader_notes
     from specproc.preprocess.transform import ppm_axis, to_spectrum
 
-    notes: list[str] = []
+    notes: list[str] = list(reader_notes(scan))  # e.g. intensity scaling applied on reading
     for key, change in dict(scan.header.get("HeaderOverrides") or {}).items():
         before, after = change.get("header"), change.get("given")
         if key.endswith("_s") and isinstance(before, int | float) and isinstance(after,
@@ -612,7 +614,9 @@ def write_scan_outputs(result: ScanResult, outdir: str | os.PathLike[str]) -> di
     result : ScanResult
         From :func:`analyse_scan`.
     outdir : path
-        Folder (created; files replaced atomically).
+        Folder (created). Every file is rendered, then all are written into a temporary
+        folder beside it and moved in (:func:`specproc._atomic.write_folder`): an error
+        leaves the folder as it was.
 
     Returns
     -------
@@ -623,9 +627,9 @@ def write_scan_outputs(result: ScanResult, outdir: str | os.PathLike[str]) -> di
     Raises
     ------
     InvalidInputError
-        When the folder cannot be created or is a file.
+        When the folder is a file or cannot be written (disk full, read-only), naming it.
     """
-    from specproc._atomic import write_bytes, write_text
+    from specproc._atomic import write_folder
     from specproc._json import dumps
     from specproc._tsv import tsv_text
     from specproc.provenance import provenance_rows
@@ -645,8 +649,8 @@ def write_scan_outputs(result: ScanResult, outdir: str | os.PathLike[str]) -> di
     texts["config"] = config_to_toml(result.config, header=(
         f"specproc settings used for {result.title} ({result.config_source}); "
         "pass back with --config"))
-    safe = result.title.replace("$", r"\$")  # matplotlib would read $...$ as mathtext
-    fig = plot_fit(result.fit, title=f"{safe}: linear-combination fit")
+    # the figure functions show titles literally (report.figures.plain_text)
+    fig = plot_fit(result.fit, title=f"{result.title}: linear-combination fit")
     blobs["figure_png"] = figure_png_bytes(fig)
     fig.set_layout_engine("none")  # keep the layout of the PNG; the PDF need not redo it
     blobs["figure_pdf"] = figure_pdf_bytes(fig)
@@ -656,7 +660,7 @@ def write_scan_outputs(result: ScanResult, outdir: str | os.PathLike[str]) -> di
         from specproc.report.preprocess_figure import render_preprocess_figure
 
         blobs["preprocess_png"] = render_preprocess_figure(
-            result.preprocessing, title=f"{safe}: preprocessing")
+            result.preprocessing, title=f"{result.title}: preprocessing")
         figures.append(("Preprocessing: transients before and after alignment, drift, average",
                         blobs["preprocess_png"]))
     except Exception as exc:  # an optional figure must not stop the results
@@ -681,15 +685,12 @@ def write_scan_outputs(result: ScanResult, outdir: str | os.PathLike[str]) -> di
         cfg_source=result.config_source,
         physics=provenance_rows(document["provenance"]),
     )
-    try:
-        out.mkdir(parents=True, exist_ok=True)
+    # text in UTF-8; characters it cannot hold (a file name that is not valid UTF-8) as "?"
+    content = {OUTPUT_FILES[role]: texts[role].encode("utf-8", "replace") if role in texts
+               else blobs[role] for role in roles}
+    try:  # every file at once: a full disk or a read-only folder changes nothing
+        written = write_folder(out, content, owned=OUTPUT_FILES.values())
     except OSError as exc:
         raise InvalidInputError(
-            f"cannot create the output folder: {exc.strerror or exc}", out) from None
-    files = {role: out / OUTPUT_FILES[role] for role in roles}
-    for role in roles:
-        if role in texts:
-            write_text(files[role], texts[role])
-        else:
-            write_bytes(files[role], blobs[role])
-    return files
+            f"cannot write the output folder: {exc.strerror or exc}", out) from None
+    return {role: written[OUTPUT_FILES[role]] for role in roles}

@@ -7,9 +7,11 @@ one line ``specproc: error: FILE: what is wrong`` and exit status 2.
 
 from __future__ import annotations
 
+import contextlib
 import os
+from collections.abc import Iterator
 
-__all__ = ["InvalidInputError", "SpecprocError"]
+__all__ = ["InvalidInputError", "SpecprocError", "naming"]
 
 
 class SpecprocError(Exception):
@@ -42,3 +44,18 @@ class InvalidInputError(SpecprocError, ValueError):
         if self.path is not None:
             return self
         return InvalidInputError(self.message, path)
+
+
+@contextlib.contextmanager
+def naming(path: str | os.PathLike[str] | None) -> Iterator[None]:
+    """Give every InvalidInputError raised in the block that names no file the file ``path``.
+
+    Used around the processing of one input file, so that a problem found deep inside (a
+    spectral window outside the spectrum, too few points) still names the file.
+    """
+    try:
+        yield
+    except InvalidInputError as exc:
+        if path is None or exc.path is not None:
+            raise
+        raise exc.with_path(path) from None

@@ -19,7 +19,7 @@ from click.testing import CliRunner
 
 from specproc import InvalidInputError
 from specproc.cli import main
-from specproc.io import input_notes, load, save
+from specproc.io import load, reader_notes, save
 
 DWELL, MHZ = 2.5e-4, 123.2  # 2.894 T for 1H
 
@@ -125,9 +125,9 @@ def test_intensity_scaling_is_recorded_and_announced(tmp_path):
     np.testing.assert_allclose(scaled.data, 2.0 * plain.data, rtol=1e-6)
     assert scaled.provenance[-1]["Method"] == "intensity scaling"
     assert scaled.provenance[-1]["Details"]["scl_slope"] == 2.0
-    assert input_notes(scaled) == [
+    assert reader_notes(scaled) == [
         "the samples were scaled by scl_slope = 2 and scl_inter = 0 from the NIfTI header"]
-    assert input_notes(plain) == []
+    assert reader_notes(plain) == []
     assert "scl_slope = 2" in _info(path).output
 
 

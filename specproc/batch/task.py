@@ -165,7 +165,12 @@ def apply_overrides(scan: Any, overrides: Mapping[str, Any]) -> Any:
                 if getattr(scan, k) is not None and getattr(scan, k) != v}
     if replaced:
         changes["header"] = {**dict(scan.header), "HeaderOverrides": replaced}
-    return scan.replace(**changes)
+    from specproc.io._util import check_physical_ranges
+
+    changed = scan.replace(**changes)
+    check_physical_ranges(changed, {k: f"the given {k[:2].upper()}" for k in overrides},
+                          scan.source)
+    return changed
 
 
 def _metabolite_rows(table: list[Mapping[str, Any]], quant: Mapping[str, Any]
@@ -204,7 +209,8 @@ def _metabolite_rows(table: list[Mapping[str, Any]], quant: Mapping[str, Any]
 def summarise_fit_json(document: Mapping[str, Any]) -> dict[str, Any]:
     """``summary.json`` content of a processed scan from the ``fit.json`` of its folder.
 
-    The scan is ``"flagged"`` when a QC flag was raised or the fit did not converge.
+    The scan is ``"flagged"`` when a QC flag was raised or the fit did not converge, and
+    ``"failed"`` when the fit collapsed (:func:`specproc.sanity.collapse_reason`).
     """
     fit = document.get("fit") or {}
     qc = document.get("qc") or {}
@@ -216,9 +222,11 @@ def summarise_fit_json(document: Mapping[str, Any]) -> dict[str, Any]:
     flags = [str(f.get("name")) for f in qc.get("flags") or [] if isinstance(f, Mapping)]
     if "not_converged" in (fit.get("flags") or []):
         flags.append("fit:not_converged")
+    collapsed = [f for f in fit.get("flags") or [] if str(f).startswith("collapsed:")]
     return {
-        "status": "flagged" if flags else "ok",
-        "reason": "",
+        "status": "failed" if collapsed else "flagged" if flags else "ok",
+        "reason": f"the fit found no spectrum ({collapsed[0].split(':', 1)[1]})"
+        if collapsed else "",
         "qc": numbers,
         "flags": flags,
         "statement": str(quant.get("statement") or ""),

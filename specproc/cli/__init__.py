@@ -15,6 +15,7 @@ from __future__ import annotations
 import importlib
 import os
 import sys
+import warnings
 from typing import Any
 
 import click
@@ -31,11 +32,19 @@ _COMMAND_MODULES: tuple[str, ...] = (
 
 
 class _Group(click.Group):
-    """A click group that turns specproc errors into one line and exit status 2."""
+    """A click group that turns specproc errors into one line and exit status 2.
+
+    Operating-system errors (disk full, permission denied) become one line naming the file;
+    numerical RuntimeWarnings are not shown (results carry their own flags), except with
+    ``--debug``.
+    """
 
     def invoke(self, ctx: click.Context) -> Any:
         try:
-            return super().invoke(ctx)
+            with warnings.catch_warnings():
+                if not ctx.params.get("debug"):
+                    warnings.simplefilter("ignore", RuntimeWarning)
+                return super().invoke(ctx)
         except click.UsageError as exc:  # bad option or argument: one line, exit 2
             if ctx.params.get("debug"):
                 raise
@@ -51,6 +60,12 @@ class _Group(click.Group):
             if ctx.params.get("debug"):
                 raise
             click.echo("specproc: error: out of memory", err=True)
+            ctx.exit(2)
+        except OSError as exc:  # the system refused a read or write
+            if ctx.params.get("debug"):
+                raise
+            where = f"{os.fsdecode(exc.filename)}: " if exc.filename is not None else ""
+            click.echo(f"specproc: error: {where}{exc.strerror or exc}", err=True)
             ctx.exit(2)
 
 

@@ -106,9 +106,10 @@ def fit_command(scan_file: Path, water_file: Path | None, gm: float | None, wm: 
     """Analyse SCAN: preprocess, fit, quantify, QC; write results, fit.json and report.html."""
     from specproc.analysis import analyse_scan, resolve_config, write_scan_outputs
     from specproc.batch.task import apply_overrides
+    from specproc.errors import naming
     from specproc.io import load
     from specproc.protocol import resolve_protocol
-    from specproc.report.messages import qc_flag_sentence
+    from specproc.report.messages import fit_status_sentence, qc_flag_sentence
 
     if out_dir.exists() and not out_dir.is_dir():
         raise InvalidInputError("the output must be a folder", out_dir)
@@ -135,11 +136,14 @@ def fit_command(scan_file: Path, water_file: Path | None, gm: float | None, wm: 
     else:
         protocol = resolve_protocol(scan, field_t=field_t, option=timings, config=config,
                                     macromolecules=macromolecules)
-    result = analyse_scan(scan, water, tissue=tissue, basis=basis, protocol=protocol,
-                          config=config_file, title=title)
+    with naming(scan_file):
+        result = analyse_scan(scan, water, tissue=tissue, basis=basis, protocol=protocol,
+                              config=config_file, title=title)
     files = write_scan_outputs(result, out_dir)
     for note in result.notes:
         click.echo(f"specproc: note: {note}", err=True)
+    if not result.fit.success:
+        click.echo(f"specproc: warning: {fit_status_sentence(result.fit)}", err=True)
     for flag in result.qc.flags:
         click.echo(f"specproc: QC flag: {qc_flag_sentence(flag.name, flag.value, flag.threshold)}",
                    err=True)

@@ -135,7 +135,7 @@ def info_command(
 ) -> None:
     """Show what each data FILE holds: format, nucleus, frequency, field, points, dims, TE, TR."""
     from specproc import _json
-    from specproc.io import input_notes, load
+    from specproc.io import load, reader_notes
 
     options: dict[str, Any] = {}
     if dwell_ms is not None:
@@ -155,7 +155,7 @@ def info_command(
             failed += 1
             continue
         info = describe_scan(scan)
-        for note in input_notes(scan):
+        for note in reader_notes(scan):
             click.echo(f"specproc: note: {name}: {note}", err=True)
         if as_json:
             click.echo(_json.dumps(info, ensure_ascii=False, allow_nan=False))

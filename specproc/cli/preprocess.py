@@ -55,8 +55,11 @@ def output_paths(out: Path) -> dict[str, Path]:
 def preprocess(scan_file: Path, water_file: Path | None, config_file: Path | None,
                out: Path) -> None:
     """Coil-combine, align, average and correct SCAN into one FID (NIfTI-MRS) plus a figure."""
-    from specproc._atomic import write_bytes
-    from specproc.io import load, save
+    import contextlib
+
+    from specproc._atomic import atomic_path
+    from specproc.errors import naming
+    from specproc.io import load, reader_notes, save
     from specproc.preprocess.pipeline import run_pipeline
     from specproc.report.preprocess_figure import render_preprocess_figure
 
@@ -64,13 +67,16 @@ def preprocess(scan_file: Path, water_file: Path | None, config_file: Path | Non
     config = load_config(config_file)
     scan = load(scan_file)
     water = load(water_file) if water_file is not None else None
-    result = run_pipeline(scan, water=water, config=config)
-    png = render_preprocess_figure(result, title=scan_file.name)  # before any file is written
-    save(result.scan, paths["scan"])
-    if result.water is not None:
-        save(result.water, paths["water"])
-    write_bytes(paths["figure"], png)
-    for note in result.notes:
+    with naming(scan_file):
+        result = run_pipeline(scan, water=water, config=config)
+        png = render_preprocess_figure(result, title=scan_file.name)  # before any write
+    # every file to a temporary name first, renamed together at the end: nothing partial
+    with contextlib.ExitStack() as stack:
+        save(result.scan, stack.enter_context(atomic_path(paths["scan"])))
+        if result.water is not None:
+            save(result.water, stack.enter_context(atomic_path(paths["water"])))
+        stack.enter_context(atomic_path(paths["figure"])).write_bytes(png)
+    for note in [*reader_notes(scan), *result.notes]:
         click.echo(f"specproc: note: {note}", err=True)
     report = result.transient_report
     kept = ("" if report is None

@@ -36,6 +36,7 @@ from specproc.fit.model import (
 from specproc.fit.result import FitResult
 from specproc.fit.settings import FitSettings, settings_from_config
 from specproc.fit.varpro import VarproProblem, coarse_search
+from specproc.sanity import collapse_reason
 
 __all__ = ["fit_spectrum", "select_members"]
 
@@ -314,6 +315,9 @@ def _assemble(
     fixed_names.update({f"ddamping_{i}_per_s": f"ddamping_{names[i]}_per_s" for i in range(m)})
     rename = lambda n: fixed_names.get(n, n)  # noqa: E731
     par_names = tuple(rename(n) for n in par_names)
+    collapsed = collapse_reason(names, c, flags)  # converged, but on no spectrum
+    if collapsed is not None:
+        flags.append(f"collapsed:{collapsed}")
     flags = [f"at_bound:{rename(f.split(':', 1)[1])}" if f.startswith("at_bound:") else f
              for f in flags]
     # phase(ppm) = φ0 + 2π φ1 ν with ν = -(ppm - pivot) · MHz
@@ -348,7 +352,7 @@ def _assemble(
         dof=dof,
         reduced_chi_square=chi2 / dof if dof > 0 else float("nan"),
         fit_range_ppm=settings.range_ppm,
-        success=bool(converged and not bad[:m].any()),
+        success=bool(converged and not bad[:m].any() and collapsed is None),
         message=message,
         flags=tuple(flags),
         nfev=int(nfev),

@@ -59,9 +59,9 @@ from specproc.io.text import read_text, write_text_fid
 __all__ = [
     "FORMATS",
     "detect_format",
-    "input_notes",
     "load",
     "normalise_sequence_name",
+    "reader_notes",
     "save",
 ]
 
@@ -221,7 +221,7 @@ def load(path: str | os.PathLike[str], **options: Any) -> Scan:
     return scan
 
 
-def input_notes(scan: Scan) -> list[str]:
+def reader_notes(scan: Scan) -> list[str]:
     """What the reader did to the data that the user should hear about (e.g. intensity scaling).
     """
     note = scaling_note(scan)

@@ -52,6 +52,7 @@ from specproc.preprocess.reference import (
     water_shift_ppm,
 )
 from specproc.preprocess.water import HLSVD_SOLVERS, remove_water_scan
+from specproc.sanity import check_signal
 
 __all__ = ["PreprocessResult", "TransientReport", "run_pipeline"]
 
@@ -130,11 +131,6 @@ class PreprocessResult:
     config: dict[str, Any] = field(default_factory=dict)
 
 
-def _check_not_zero(scan: Scan, what: str) -> None:
-    if not np.any(np.abs(scan.data) > 0):
-        raise InvalidInputError(f"the {what} are all zero", scan.source)
-
-
 def _arrange_axes(scan: Scan, what: str) -> Scan:
     """Average the phase cycle, merge transient axes, move coils first: dims (COIL?, DYN)."""
     for tag in scan.dims:
@@ -192,7 +188,7 @@ def _check_water(scan: Scan, water: Scan) -> None:
             f"the data at {scan.spectrometer_mhz:g} MHz",
             water.source,
         )
-    _check_not_zero(water, "water reference data")
+    check_signal(water)
 
 
 def _window(values: list[float]) -> tuple[float, float]:
@@ -340,7 +336,7 @@ def run_pipeline(
     cfg = cfg_all["preprocess"]
     _check_choices(cfg)
     notes: list[str] = []
-    _check_not_zero(scan, "data")
+    check_signal(scan)  # zero, constant, too short or overflowing data are refused
     if water is not None:
         _check_water(scan, water)
     scan = _arrange_axes(scan, "data")

@@ -15,7 +15,15 @@ from typing import Any
 
 from specproc._atomic import write_bytes
 
-__all__ = ["figure_pdf_bytes", "figure_png_bytes", "png_data_uri", "save_figure_pdf"]
+__all__ = ["figure_pdf_bytes", "figure_png_bytes", "plain_text", "png_data_uri",
+           "save_figure_pdf"]
+
+
+def plain_text(text: str) -> str:
+    """``text`` as matplotlib shows it literally: ``$`` escaped (no mathtext), characters that
+    cannot be encoded (file names that are not valid UTF-8) as ``?``."""
+    safe = str(text).encode("utf-8", "replace").decode("utf-8")
+    return safe.replace("$", r"\$")
 
 
 def figure_png_bytes(fig: Any, *, dpi: int = 110) -> bytes:

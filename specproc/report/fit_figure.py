@@ -23,6 +23,7 @@ from typing import Any
 import numpy as np
 
 from specproc.report import palette
+from specproc.report.figures import plain_text
 
 __all__ = ["plot_fit"]
 
@@ -105,7 +106,7 @@ def plot_fit(result: Any, *, title: str | None = None, member_threshold: float =
     ax_spec.legend(loc="upper left", fontsize=8, frameon=False, ncols=3)
     ax_spec.set_ylabel("absorption (a.u.)", fontsize=8)
     if title:
-        ax_spec.set_title(title.replace("$", r"\$"), fontsize=9, loc="left")
+        ax_spec.set_title(plain_text(title), fontsize=9, loc="left")
 
     # the residual on the spectrum's scale, so that its size reads against the peaks
     lo, hi = float(np.min(data)), float(np.max(data))

@@ -293,6 +293,13 @@ def _maybe(value: Any) -> float | None:
 def fit_status_sentence(fit: Any) -> str:
     """One line on how the fit ended, without the optimiser's own wording."""
     n = int(getattr(fit, "nfev", 0) or 0)
+    flags = tuple(getattr(fit, "flags", ()) or ())
+    if "collapsed:principal_metabolites_zero" in flags:
+        return ("The fit failed: NAA and creatine both came out as zero, so it found no "
+                "brain spectrum and every ratio to creatine is undefined.")
+    if "collapsed:shift_at_limit" in flags:
+        return ("The fit failed: its frequency shift ended at the limit (fit.shift_limit_ppm), "
+                "so it did not find the peaks; check the referencing of the data.")
     if getattr(fit, "success", False):
         return f"The fit converged ({n} model evaluations)."
     if "not_converged" in tuple(getattr(fit, "flags", ()) or ()):

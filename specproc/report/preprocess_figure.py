@@ -19,6 +19,7 @@ from specproc._atomic import write_bytes
 from specproc.preprocess.pipeline import PreprocessResult
 from specproc.preprocess.transform import ppm_axis, to_spectrum
 from specproc.report import palette
+from specproc.report.figures import plain_text
 
 __all__ = ["render_preprocess_figure", "save_preprocess_figure"]
 
@@ -112,7 +113,7 @@ def render_preprocess_figure(result: PreprocessResult, *, title: str | None = No
         ax.set_xlabel("chemical shift (ppm)")
         ax.set_yticks([])
     if title:
-        fig.suptitle(title.replace("$", r"\$"), fontsize=11)
+        fig.suptitle(plain_text(title), fontsize=11)
     buffer = io.BytesIO()
     fig.savefig(buffer, format="png", dpi=100)
     return buffer.getvalue()

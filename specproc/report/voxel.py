@@ -20,6 +20,8 @@ from typing import Any
 
 import numpy as np
 
+from specproc.report.figures import plain_text
+
 __all__ = [
     "PLANES",
     "TISSUE_COLOURS",
@@ -215,7 +217,7 @@ def plot_voxel(anatomy: np.ndarray, affine: np.ndarray, voxel: Any, *,
                    frameon=False)
     sides = " x ".join(f"{s:.1f}" for s in voxel.size_mm)
     heading = f"voxel {sides} mm at ({', '.join(f'{c:.1f}' for c in centre)}) mm"
-    fig.suptitle(f"{title}: {heading}" if title else heading, fontsize=10)
+    fig.suptitle(plain_text(f"{title}: {heading}" if title else heading), fontsize=10)
     return fig
 
 
