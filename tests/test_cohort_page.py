@@ -115,3 +115,13 @@ def test_flagged_scans_are_listed_in_words_with_links(page, demo_cohort) -> None
     for rule in ("Flagged scans", "CRLB is above 20 %", "not summarised"):
         assert rule in html
     assert "<script" not in html
+
+
+def test_phantom_of_the_manifest_is_fitted_without_macromolecules(demo_cohort) -> None:
+    rows = _read(demo_cohort.scan_dir("sub-phantom_ses-01_svs") / "results.tsv")
+    kinds = {r["kind"] for r in rows}
+    assert "macromolecule" not in kinds and "metabolite" in kinds
+    volunteer = _read(demo_cohort.scan_dir("sub-01_ses-01_svs") / "results.tsv")
+    assert "macromolecule" in {r["kind"] for r in volunteer}  # TE 30 ms: the short-TE rule
+    page = (demo_cohort.out / "cohort.html").read_text("utf-8")
+    assert "phantom scan(s) (manifest kind 'phantom') are listed" in page

@@ -38,15 +38,19 @@ def _num(value: Any, digits: int) -> str:
     return f"{value:.{digits}f}"
 
 
-def summary_row(key: str, summary: Mapping[str, Any]) -> dict[str, str]:
-    """Printed values of one scan from its ``summary.json`` (:mod:`specproc.batch.task`)."""
+def summary_row(key: str, summary: Mapping[str, Any],
+                thresholds: Mapping[str, Any] | None = None) -> dict[str, str]:
+    """Printed values of one scan from its ``summary.json`` (:mod:`specproc.batch.task`); its
+    flags as sentences (``thresholds``: :meth:`specproc.qc.QCThresholds.to_dict`)."""
+    from specproc.report.messages import sentences
+
     by_name = {str(r.get("metabolite")): r for r in summary.get("metabolites") or []}
 
     def ratio(name: str) -> str:
         return _num((by_name.get(name) or {}).get("ratio_tcr"), 3)
 
     qc = summary.get("qc") or {}
-    flags = list(summary.get("flags") or [])
+    flags = sentences(list(summary.get("flags") or []), qc=qc, thresholds=thresholds)
     if summary.get("status") == "failed":
         flags = [f"failed: {summary.get('reason', '')}"]
     return {
@@ -96,14 +100,18 @@ def demo(out_dir: Path, config_file: Path | None, workers: int) -> None:
     folder = demo_dir()
     entries = read_manifest(folder / "manifest.tsv")
     click.echo(f"specproc demo: {len(entries)} scans of the invented study in {folder}", err=True)
-    summary = run_batch(entries, out_dir, config=load_config(config_file), workers=workers,
+    from specproc.qc import QCThresholds
+
+    config = load_config(config_file)
+    thresholds = QCThresholds.from_config(config["qc"]).to_dict()
+    summary = run_batch(entries, out_dir, config=config, workers=workers,
                         progress=False, title="specproc demo study (invented data)")
     click.echo(summary.counts_line())
     table = []
     for entry in entries:
         scan_summary = read_json(scan_folder(summary.out_dir, entry.key) / SUMMARY_NAME) or {
             "status": "failed", "reason": "not processed"}
-        table.append(summary_row(entry.key, scan_summary))
+        table.append(summary_row(entry.key, scan_summary, thresholds))
     click.echo(_format_table(table))
     click.echo("")
     click.echo("tNAA mM: water-referenced (mmol per litre of GM+WM tissue); '-' where the manifest "

@@ -184,10 +184,13 @@ def _noise_statement(fit: Any, qc: Any) -> str:
     if math.isclose(float(qc.noise_sd), float(fit.noise_sd), rel_tol=1e-12):
         return (f"Noise: one noise SD, {sig(fit.noise_sd)}, measured in {ranges(fit_regions)}, "
                 "gives both the SNR above and the fit's error bounds.")
-    return (f"Noise: the SNR above uses the noise SD of the spectrum in {ranges(regions)}; "
-            f"the fit's error bounds use the noise SD {sig(fit.noise_sd)} measured in "
-            f"{ranges(fit_regions) if fit_regions else 'the regions of the settings'}. "
-            "The two can differ because the regions differ.")
+    fit_where = ranges(fit_regions) if fit_regions else "the regions of the settings"
+    if math.isclose(float(qc.noise_sd), float(fit.noise_sd), rel_tol=1e-9):
+        return (f"Noise: one noise SD, {sig(fit.noise_sd)}, measured in {fit_where}, is used by "
+                "both the SNR and the fit's error bounds.")
+    return (f"Noise: the SNR above uses the noise SD {sig(qc.noise_sd)} of the spectrum in "
+            f"{ranges(regions)}; the fit's error bounds use the noise SD {sig(fit.noise_sd)} "
+            f"measured in {fit_where}. The two differ because the regions differ.")
 
 
 def render_report(
