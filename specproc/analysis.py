@@ -58,15 +58,20 @@ from specproc.errors import InvalidInputError
 __all__ = [
     "KEY_RATIOS",
     "OUTPUT_FILES",
+    "OUTPUT_MODES",
+    "STATE_FILE",
     "WATER_DOMINANCE_MIN",
     "ScanResult",
     "analyse_scan",
     "input_notes",
+    "load_scan_result",
+    "render_saved_result",
     "resolve_config",
+    "save_scan_result",
     "write_scan_outputs",
 ]
 
-#: Output file names, by role.
+#: Output file names of a folder with all outputs, by role.
 OUTPUT_FILES: Mapping[str, str] = {
     "results": "results.tsv",
     "json": "fit.json",
@@ -76,6 +81,23 @@ OUTPUT_FILES: Mapping[str, str] = {
     "preprocess_png": "preprocess.png",
     "report": "report.html",
 }
+
+#: The saved result of a tables-only folder, for drawing its figures and report later.
+STATE_FILE = "result.pickle"
+_FILE_NAMES: Mapping[str, str] = {**OUTPUT_FILES, "state": STATE_FILE}
+
+#: What :func:`write_scan_outputs` writes: ``"all"`` (tables, figures, report) or ``"tables"``
+#: (results.tsv, fit.json, config.toml and, for rendering later, result.pickle).
+OUTPUT_MODES: tuple[str, ...] = ("all", "tables")
+
+#: Roles written in each mode.
+_MODE_ROLES: Mapping[str, tuple[str, ...]] = {
+    "all": ("results", "json", "config", "figure_png", "figure_pdf", "preprocess_png",
+            "report"),
+    "tables": ("results", "json", "config", "state"),
+}
+
+_STATE_FORMAT = "specproc-scan-state"
 
 #: Ratios summarised by :meth:`ScanResult.summary` (``<name>/tCr``).
 KEY_RATIOS: tuple[str, ...] = ("NAA", "tNAA", "tCho", "mI", "Glx")
@@ -606,7 +628,8 @@ def analyse_scan(
 
 # ============================================================================ outputs
 @blas_threads()
-def write_scan_outputs(result: ScanResult, outdir: str | os.PathLike[str]) -> dict[str, Path]:
+def write_scan_outputs(result: ScanResult, outdir: str | os.PathLike[str], *,
+                       outputs: str = "all") -> dict[str, Path]:
     """Write the folder of one analysed scan (the only writer of a scan folder).
 
     Parameters
@@ -617,38 +640,58 @@ def write_scan_outputs(result: ScanResult, outdir: str | os.PathLike[str]) -> di
         Folder (created). Every file is rendered, then all are written into a temporary
         folder beside it and moved in (:func:`specproc._atomic.write_folder`): an error
         leaves the folder as it was.
+    outputs : {"all", "tables"}
+        ``"all"``: tables, figures and report.html. ``"tables"``: results.tsv, fit.json and
+        config.toml only (about half the cost of a scan), with the result saved as
+        result.pickle (:func:`save_scan_result`) so that :func:`render_saved_result` (``specproc
+        render``) can draw the figures and the report later with the same numbers. The files
+        of the other mode left by an earlier run are removed: a folder never holds figures of
+        other numbers than its tables.
 
     Returns
     -------
     dict of str to Path
-        The files written, by role (:data:`OUTPUT_FILES`; ``preprocess_png`` may be missing
-        when that figure could not be drawn, a note then says why).
+        The files written, by role (:data:`OUTPUT_FILES`, and ``state`` in tables mode;
+        ``preprocess_png`` may be missing when that figure could not be drawn, a note then
+        says why).
 
     Raises
     ------
     InvalidInputError
-        When the folder is a file or cannot be written (disk full, read-only), naming it.
+        When the folder is a file or cannot be written (disk full, read-only), naming it, or
+        for an unknown ``outputs``.
     """
-    from specproc._atomic import write_folder
-    from specproc._json import dumps
     from specproc._tsv import tsv_text
-    from specproc.provenance import provenance_rows
-    from specproc.report.figures import figure_pdf_bytes, figure_png_bytes
-    from specproc.report.fit_figure import plot_fit
-    from specproc.report.html import render_report
     from specproc.report.tables import RESULT_COLUMNS, config_to_toml
 
+    if outputs not in OUTPUT_MODES:
+        raise InvalidInputError(
+            f"outputs must be one of {', '.join(OUTPUT_MODES)}, got {outputs!r}")
     out = Path(outdir)
     if out.exists() and not out.is_dir():
         raise InvalidInputError("the output must be a folder", out)
     notes = list(result.notes)
     rows = result.rows()
+    document = result.to_dict()
+    fit = result.fit
+    # the phased absorption spectra on the fit range, for cohort overlays (6 digits suffice)
+    document["spectrum"] = {"ppm": [round(float(v), 5) for v in fit.ppm],
+                            "data": [float(f"{v:.6g}") for v in fit.data.real],
+                            "fit": [float(f"{v:.6g}") for v in fit.fit.real]}
     texts: dict[str, str] = {}
     blobs: dict[str, bytes] = {}
     texts["results"] = tsv_text(RESULT_COLUMNS, rows)
     texts["config"] = config_to_toml(result.config, header=(
         f"specproc settings used for {result.title} ({result.config_source}); "
         "pass back with --config"))
+    if outputs == "tables":
+        blobs["state"] = _state_bytes(result)
+        return _write_folder(out, document, notes, texts, blobs, outputs)
+    from specproc.provenance import provenance_rows
+    from specproc.report.figures import figure_pdf_bytes, figure_png_bytes
+    from specproc.report.fit_figure import plot_fit
+    from specproc.report.html import render_report
+
     # the figure functions show titles literally (report.figures.plain_text)
     fig = plot_fit(result.fit, title=f"{result.title}: linear-combination fit")
     blobs["figure_png"] = figure_png_bytes(fig)
@@ -665,16 +708,6 @@ def write_scan_outputs(result: ScanResult, outdir: str | os.PathLike[str]) -> di
                         blobs["preprocess_png"]))
     except Exception as exc:  # an optional figure must not stop the results
         notes.append(f"preprocessing figure not drawn: {type(exc).__name__}: {exc}")
-    roles = [r for r in OUTPUT_FILES if r in texts or r in blobs or r in ("json", "report")]
-    document = result.to_dict()
-    fit = result.fit
-    # the phased absorption spectra on the fit range, for cohort overlays (6 digits suffice)
-    document["spectrum"] = {"ppm": [round(float(v), 5) for v in fit.ppm],
-                            "data": [float(f"{v:.6g}") for v in fit.data.real],
-                            "fit": [float(f"{v:.6g}") for v in fit.fit.real]}
-    document["notes"] = notes
-    document["outputs"] = {role: OUTPUT_FILES[role] for role in roles}
-    texts["json"] = dumps(document, indent=1, allow_nan=False) + "\n"
     texts["report"] = render_report(
         title=result.title, scan=result.scan, water=result.water, pre=result.preprocessing,
         fit=result.fit, quant=result.quantification, qc=result.qc, rows=rows,
@@ -685,12 +718,92 @@ def write_scan_outputs(result: ScanResult, outdir: str | os.PathLike[str]) -> di
         cfg_source=result.config_source,
         physics=provenance_rows(document["provenance"]),
     )
+    return _write_folder(out, document, notes, texts, blobs, outputs)
+
+
+def _write_folder(out: Path, document: dict[str, Any], notes: list[str],
+                  texts: dict[str, str], blobs: dict[str, bytes],
+                  outputs: str) -> dict[str, Path]:
+    """fit.json (listing the files of this mode), then every file at once."""
+    from specproc._atomic import write_folder
+    from specproc._json import dumps
+
+    roles = [r for r in _MODE_ROLES[outputs] if r in texts or r in blobs or r == "json"]
+    document["notes"] = notes
+    document["outputs"] = {role: _FILE_NAMES[role] for role in roles}
+    texts["json"] = dumps(document, indent=1, allow_nan=False) + "\n"
     # text in UTF-8; characters it cannot hold (a file name that is not valid UTF-8) as "?"
-    content = {OUTPUT_FILES[role]: texts[role].encode("utf-8", "replace") if role in texts
+    content = {_FILE_NAMES[role]: texts[role].encode("utf-8", "replace") if role in texts
                else blobs[role] for role in roles}
     try:  # every file at once: a full disk or a read-only folder changes nothing
-        written = write_folder(out, content, owned=OUTPUT_FILES.values())
+        written = write_folder(out, content, owned=_FILE_NAMES.values())
     except OSError as exc:
         raise InvalidInputError(
             f"cannot write the output folder: {exc.strerror or exc}", out) from None
-    return {role: written[OUTPUT_FILES[role]] for role in roles}
+    return {role: written[_FILE_NAMES[role]] for role in roles}
+
+
+# ============================================================================ saved state
+def _state_bytes(result: ScanResult) -> bytes:
+    import pickle
+
+    from specproc import __version__
+
+    header = {"format": _STATE_FORMAT, "specproc": __version__}
+    return pickle.dumps((header, result), protocol=pickle.HIGHEST_PROTOCOL)
+
+
+def save_scan_result(result: ScanResult, path: str | os.PathLike[str]) -> None:
+    """Save a result with everything needed to draw its figures and report later.
+
+    A Python pickle (about 6 MB for 32 transients of 2,048 points with 4 coils): read it back
+    only with :func:`load_scan_result` of the same specproc version, and only from folders you
+    wrote yourself, since loading a pickle can run code.
+    """
+    from specproc._atomic import write_bytes
+
+    write_bytes(Path(path), _state_bytes(result))
+
+
+def load_scan_result(path: str | os.PathLike[str]) -> ScanResult:
+    """A result saved by :func:`save_scan_result` (or by ``outputs="tables"``).
+
+    Raises
+    ------
+    InvalidInputError
+        For a missing or unreadable file, or one written by another specproc version.
+    """
+    import pickle
+
+    from specproc import __version__
+
+    p = Path(path)
+    try:
+        with open(p, "rb") as handle:
+            header, result = pickle.load(handle)
+    except FileNotFoundError:
+        raise InvalidInputError("no saved result (run the analysis with tables only)",
+                                p) from None
+    except Exception as exc:  # a truncated or foreign file
+        raise InvalidInputError(f"not a saved specproc result: {type(exc).__name__}",
+                                p) from None
+    if not isinstance(header, dict) or header.get("format") != _STATE_FORMAT or not isinstance(
+            result, ScanResult):
+        raise InvalidInputError("not a saved specproc result", p)
+    if header.get("specproc") != __version__:
+        raise InvalidInputError(
+            f"saved by specproc {header.get('specproc')}, this is {__version__}: analyse the "
+            "scan again", p)
+    return result
+
+
+def render_saved_result(folder: str | os.PathLike[str]) -> dict[str, Path]:
+    """Draw the figures and report of a scan folder written with ``outputs="tables"``.
+
+    The saved result (``result.pickle``) is written out with ``outputs="all"``: the same
+    results.tsv, fit.json and config.toml, plus the figures and report.html, exactly as if
+    they had been drawn at analysis time; the saved result is then removed.
+    """
+    out = Path(folder)
+    state = out / STATE_FILE
+    return write_scan_outputs(load_scan_result(state), out, outputs="all")

@@ -56,6 +56,7 @@ __all__ = [
     "WATCHDOG_PERIOD_S",
     "BatchSummary",
     "config_sha256",
+    "default_workers",
     "output_lock",
     "run_batch",
 ]
@@ -292,6 +293,16 @@ def _single_threaded_children() -> Iterator[None]:
                 os.environ[k] = v
 
 
+def default_workers(n_scans: int) -> int:
+    """Local worker processes for ``n_scans`` scans: one per CPU this process may use, at most
+    one per scan (each worker holds about 200 MB and one BLAS thread)."""
+    if hasattr(os, "sched_getaffinity"):
+        cpus = len(os.sched_getaffinity(0))
+    else:  # pragma: no cover - macOS, Windows
+        cpus = os.cpu_count() or 1
+    return max(1, min(cpus, n_scans))
+
+
 def _make_executor(workers: int, scheduler: str | None) -> _Executor:
     if scheduler:
         return _Dask(scheduler)
@@ -481,6 +492,7 @@ def run_batch(
     retry_failed: bool = False,
     progress: bool = False,
     title: str = "specproc cohort",
+    outputs: str = "all",
 ) -> BatchSummary:
     """Process a cohort, resuming what an earlier run left, and write the cohort summary.
 
@@ -510,16 +522,24 @@ def run_batch(
         Show a progress bar on stderr.
     title : str
         Title of ``cohort.html``.
+    outputs : {"all", "tables"}
+        What each scan folder gets (:func:`specproc.analysis.write_scan_outputs`): tables,
+        figures and report, or the tables only (with the saved result, for ``specproc render``
+        later). A scan done in the other mode counts as not done.
 
     Returns
     -------
     BatchSummary
     """
+    from specproc.analysis import OUTPUT_MODES
     from specproc.batch.cohort import write_cohort
     from specproc.config import load_config
 
     if workers < 1:
         raise InvalidInputError(f"--workers must be at least 1, got {workers}")
+    if outputs not in OUTPUT_MODES:
+        raise InvalidInputError(f"outputs must be one of {', '.join(OUTPUT_MODES)}, got "
+                                f"{outputs!r}")
     out = Path(out_dir).resolve()
     out.mkdir(parents=True, exist_ok=True)
     cfg = dict(config) if config is not None else load_config(None)
@@ -539,7 +559,8 @@ def run_batch(
     with output_lock(out):
         _run_entries(entries, out, cfg, summary, workers=workers, scheduler=scheduler,
                      metabolites=metabolites, macromolecules=macromolecules,
-                     retry_failed=retry_failed, progress=progress, config_hash=config_hash)
+                     retry_failed=retry_failed, progress=progress, config_hash=config_hash,
+                     outputs=outputs)
         counts = write_cohort(entries, out, title=title, qc_config=cfg.get("qc"))
     summary.n_failed = counts["failed"]
     summary.n_flagged = counts["flagged"]
@@ -552,7 +573,7 @@ def run_batch(
 def _run_entries(entries: Sequence[ScanEntry], out: Path, cfg: dict[str, Any],
                  summary: BatchSummary, *, workers: int, scheduler: str | None,
                  metabolites: Sequence[str] | None, macromolecules: bool | None,
-                 retry_failed: bool, progress: bool, config_hash: str) -> None:
+                 retry_failed: bool, progress: bool, config_hash: str, outputs: str) -> None:
     """Prepare, skip or submit every entry and wait for the workers (the lock is held)."""
     advance, stop = _progress(len(entries), progress)
     runner = _Dispatcher(workers, scheduler, summary, advance)
@@ -563,6 +584,8 @@ def _run_entries(entries: Sequence[ScanEntry], out: Path, cfg: dict[str, Any],
                                  metabolites=metabolites,
                                  macromolecules=macromolecules):
                 folder = scan_folder(out, prep.entry.key)
+                if outputs != "all":  # the outputs of a scan folder are part of its inputs
+                    prep.inputs["outputs"] = outputs
                 previous = done_matches(folder, prep.inputs)
                 if previous is not None and not (
                     retry_failed and previous.get("status") == "failed"
@@ -596,6 +619,7 @@ def _run_entries(entries: Sequence[ScanEntry], out: Path, cfg: dict[str, Any],
                     "tissue": None if prep.entry.tissue is None else dict(prep.entry.tissue),
                     "overrides": dict(prep.entry.overrides),
                     "inputs": prep.inputs,
+                    "outputs": outputs,
                 })
             runner.drain()
     finally:

@@ -255,7 +255,7 @@ def process_one(task: Mapping[str, Any]) -> dict[str, Any]:
         scan, water, tissue=task.get("tissue"), basis=basis, protocol=task.get("protocol"),
         config=task.get("config"), title=task["key"],
     )
-    write_scan_outputs(result, folder)
+    write_scan_outputs(result, folder, outputs=task.get("outputs", "all"))
     document = read_json(folder / "fit.json")
     if document is None:
         raise RuntimeError("the per-scan analysis wrote no readable fit.json")

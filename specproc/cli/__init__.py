@@ -27,7 +27,8 @@ __all__ = ["main"]
 
 #: Modules of this package that each define ``COMMANDS``: a list of click commands to register.
 _COMMAND_MODULES: tuple[str, ...] = (
-    "info", "basis", "config", "preprocess", "fit", "demo", "batch", "phantom", "tissue",
+    "info", "basis", "config", "preprocess", "fit", "demo", "batch", "render", "phantom",
+    "tissue",
 )
 
 

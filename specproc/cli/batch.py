@@ -12,7 +12,6 @@ Exit status: 0 when the batch ran (failed scans are counted and listed in the ou
 
 from __future__ import annotations
 
-import os
 from pathlib import Path
 
 import click
@@ -41,23 +40,26 @@ __all__ = ["COMMANDS"]
               help="Process again the scans that failed in an earlier run with the same inputs.")
 @click.option("--strict", is_flag=True, help="Exit with status 1 when any scan failed.")
 @click.option("--no-progress", is_flag=True, help="Do not show the progress bar.")
+@click.option("--tables-only", is_flag=True,
+              help="Per scan only results.tsv, fit.json and config.toml (no figures, no "
+                   "report.html; about half the time); `specproc render` draws them later.")
 def batch(source: Path, out_dir: Path, workers: int | None, scheduler: str | None,
           config_file: Path | None, metabolites: str | None, macromolecules: bool | None,
-          retry_failed: bool, strict: bool, no_progress: bool) -> None:
+          retry_failed: bool, strict: bool, no_progress: bool, tables_only: bool) -> None:
     """Process every scan of a manifest or BIDS-style folder and summarise the cohort."""
     from specproc.batch import ignored_columns, read_entries, run_batch
+    from specproc.batch.runner import default_workers
     from specproc.config import load_config
     from specproc.errors import InvalidInputError
 
     if not source.exists():
         raise InvalidInputError("the manifest or folder does not exist", source)
-    if workers is None:
-        workers = max(1, len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity")
-                      else (os.cpu_count() or 1))
-    if workers < 1:
+    if workers is not None and workers < 1:
         raise InvalidInputError(f"--workers must be at least 1, got {workers}")
     config = load_config(config_file)
     entries = read_entries(source)
+    if workers is None:
+        workers = default_workers(len(entries))
     if source.is_file():
         extra = ignored_columns(source)
         if extra:
@@ -69,6 +71,7 @@ def batch(source: Path, out_dir: Path, workers: int | None, scheduler: str | Non
         entries, out_dir, config=config, workers=workers, scheduler=scheduler,
         metabolites=names, macromolecules=macromolecules, retry_failed=retry_failed,
         progress=not no_progress, title=f"specproc cohort: {source.name}",
+        outputs="tables" if tables_only else "all",
     )
     click.echo(summary.counts_line())
     for key, reason in summary.failures:

@@ -85,21 +85,25 @@ def _format_table(rows: list[dict[str, str]]) -> str:
               help="Folder for the reports (one sub-folder per scan under scans/).")
 @click.option("--config", "config_file", type=click.Path(dir_okay=False, path_type=Path),
               default=None, help="Settings TOML merged over the defaults.")
-@click.option("--workers", type=int, default=1, show_default=True, metavar="N",
-              help="Local worker processes (1 runs in this process).")
-def demo(out_dir: Path, config_file: Path | None, workers: int) -> None:
+@click.option("--workers", type=click.IntRange(min=1), default=None, metavar="N",
+              help="Local worker processes (default: one per CPU, at most one per scan; 1 runs "
+                   "in this process).")
+def demo(out_dir: Path, config_file: Path | None, workers: int | None) -> None:
     """Process the bundled demo study (invented data) and print its results."""
     from specproc._atomic import write_text
     from specproc._paths import demo_dir
     from specproc._tsv import tsv_text
     from specproc.batch import read_manifest, run_batch
-    from specproc.batch.runner import scan_folder
+    from specproc.batch.runner import default_workers, scan_folder
     from specproc.batch.task import SUMMARY_NAME, read_json
     from specproc.config import load_config
 
     folder = demo_dir()
     entries = read_manifest(folder / "manifest.tsv")
-    click.echo(f"specproc demo: {len(entries)} scans of the invented study in {folder}", err=True)
+    if workers is None:
+        workers = default_workers(len(entries))
+    click.echo(f"specproc demo: {len(entries)} scans of the invented study in {folder} "
+               f"({workers} worker{'s' if workers > 1 else ''})", err=True)
     from specproc.qc import QCThresholds
 
     config = load_config(config_file)
