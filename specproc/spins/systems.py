@@ -260,7 +260,9 @@ def load_metabolite(path: str | os.PathLike[str]) -> Metabolite:
         Naming the file, when it cannot be read, is not TOML, misses a key, has a value of the
         wrong type, a non-positive proton count, a fraction outside (0, 1], an unknown
         ``kind``, repeated group labels, a coupling that does not name two different
-        existing groups or repeats a pair, or coupled groups with different fractions.
+        existing groups or repeats a pair, coupled groups with different fractions, or a
+        value without a valid provenance record (unknown status or reference, missing
+        source or place; :func:`specproc.provenance.parse_provenance`).
     """
     path = Path(path)
     table = _read_toml(path)
@@ -398,8 +400,9 @@ def load_macromolecules(folder: str | os.PathLike[str] | None = None) -> list[Ma
     Raises
     ------
     InvalidInputError
-        Naming the file, when it is missing or malformed, a name repeats, or a line has a
-        non-positive width or weight.
+        Naming the file, when it is missing or malformed, a name repeats, a line has a
+        non-positive width or weight, or a component lacks a valid ``provenance`` or
+        ``shape_provenance`` record.
     """
     folder = Path(folder) if folder is not None else basis_dir()
     path = folder / MACROMOLECULE_FILE
