@@ -113,6 +113,7 @@ def test_qc_and_relaxation_tables_are_accepted(tmp_path):
 snr_min = 5
 crlb_percent_max = 30.0
 drift_range_hz_max = 0
+exclude_flagged = false
 [relaxation.metabolite.NAA]
 t2_s = 0.25
 source = "this study"
