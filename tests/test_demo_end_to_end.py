@@ -8,8 +8,8 @@ compare what the whole pipeline (load, preprocess, fit, quantify) recovers with 
   molecule ratios (``signal_ratios``: the ratios carry no relaxation correction);
 * water-referenced tNAA within 10 % of its generated tissue concentration. The water reference
   was generated with the signal model behind the molar equation of Gasparovic et al., Magn Reson
-  Med 2006;55:1219-1226 (tissue water contents GM 0.78, WM 0.65, CSF 0.97, pure water
-  55.51 mol/L, relaxation of specproc/data/relaxation.toml), so a correct chain of water
+  Med 2006;55:1219-1226 (tissue water contents GM 0.837, WM 0.691, CSF 1.0, pure water
+  55.14 mol/L at 37 C, relaxation of specproc/data/relaxation.toml), so a correct chain of water
   amplitude, tissue correction and relaxation correction must return the generated value.
 
 The 10 % tolerance is the acceptance criterion of issue 6 (common practice for a demo check).
