@@ -9,7 +9,9 @@ Usage::
    (``generate.py``; with ``--subset N`` only those scans).
 2. ``specproc batch MANIFEST -o RUNDIR --workers N`` runs with default settings, exactly as a
    user would (with ``--subset N`` on a manifest of about N scans spread over the
-   categories). ``--score-only`` skips this and scores an existing RUNDIR.
+   categories). The scans whose TE1 the manifest gives (column ``te1_ms``) are also run one by
+   one as ``specproc fit SCAN --water REF --gm .. --wm .. --csf .. --te1-ms X -o DIR``
+   (``--no-fit-cli`` skips this). ``--score-only`` skips both and scores an existing RUNDIR.
 3. The estimates in ``RUNDIR/cohort.tsv`` are compared with ``CORPUS/truth.json``: relative
    error ``estimate / truth - 1`` of the ratios to tCr (tNAA, tCho, mI, Glu, Glx, Lac) and of the
    water-referenced tNAA (mM of GM+WM tissue, tissue scans only). The reported bound is the SD of
@@ -36,6 +38,7 @@ import subprocess
 import sys
 import time
 from collections.abc import Callable, Sequence
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 from typing import Any
 
@@ -131,6 +134,49 @@ def run_batch(manifest: Path, run_dir: Path, workers: int) -> dict[str, float]:
     return {"wall_s": wall, "cpu_s": cpu}
 
 
+def run_fit_cli(corpus: Path, manifest: Path, out_root: Path, workers: int) -> dict[str, float]:
+    """``specproc fit`` per scan for the manifest rows with ``te1_ms`` (TE1 on the command line)."""
+    with open(manifest, newline="") as fh:
+        rows = [r for r in csv.DictReader(fh, delimiter="\t") if r.get("te1_ms")]
+    env = dict(os.environ, OPENBLAS_NUM_THREADS="1", OMP_NUM_THREADS="1", MKL_NUM_THREADS="1")
+
+    def one(row: dict[str, str]) -> int:
+        cmd = [*specproc_command(), "fit", str(corpus / row["scan"]), "--water",
+               str(corpus / row["water"]), "--te1-ms", row["te1_ms"],
+               "-o", str(out_root / row["scan_id"])]
+        for tissue in ("gm", "wm", "csf"):
+            if row.get(tissue):
+                cmd += [f"--{tissue}", row[tissue]]
+        return subprocess.run(cmd, env=env, capture_output=True, text=True).returncode
+
+    print(f"$ specproc fit ... --te1-ms X on {len(rows)} scans", file=sys.stderr)
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
+    start = time.perf_counter()
+    with ThreadPoolExecutor(max_workers=workers) as pool:
+        codes = list(pool.map(one, rows))
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
+    cpu = (after.ru_utime - before.ru_utime) + (after.ru_stime - before.ru_stime)
+    return {"wall_s": time.perf_counter() - start, "cpu_s": cpu, "n": len(rows),
+            "n_failed": sum(1 for c in codes if c != 0)}
+
+
+def read_fit_cli(out_root: Path) -> dict[str, dict[str, dict[str, float]]]:
+    """Estimates of the ``specproc fit`` runs, by scan and metabolite (results.tsv)."""
+    est: dict[str, dict[str, dict[str, float]]] = {}
+    if not out_root.is_dir():
+        return est
+    for folder in sorted(out_root.iterdir()):
+        table = folder / "results.tsv"
+        if not table.is_file():
+            continue
+        with open(table, newline="") as fh:
+            for row in csv.DictReader(fh, delimiter="\t"):
+                est.setdefault(folder.name, {})[row["metabolite"]] = {
+                    k: _num(row.get(k)) for k in ("ratio_tcr", "ratio_tcr_sd", "conc_molar_mm",
+                                                  "conc_molar_sd_mm")}
+    return est
+
+
 # ------------------------------------------------------------------ scoring
 def read_cohort(run_dir: Path) -> tuple[dict[str, dict[str, dict[str, float]]], dict[str, str]]:
     """Estimates by scan and metabolite, and the status of every scan."""
@@ -208,6 +254,16 @@ def score(corpus: Path, run_dir: Path) -> dict[str, Any]:
         failed = sum(1 for t in sel if status.get(t["scan_id"]) == "failed")
         cells = {name: summarise(errors(sel, est, *measures[name])) for name in shown}
         out["rows"].append({"label": label, "n": len(sel), "failed": failed, "cells": cells})
+    fit_est = read_fit_cli(run_dir / "fit-cli")
+    if fit_est:
+        for label, source in (("TE1 given: specproc batch, manifest column", est),
+                              ("TE1 given: specproc fit --te1-ms", fit_est)):
+            sel = [t for t in truths if t["spec"]["timing"] == "manifest"]
+            failed = sum(1 for t in sel if t["scan_id"] not in source)
+            cells = {name: summarise(errors(sel, source, *measures[name]))
+                     for name in ("tNAA", "tCho", "mI", "Glu", "Glx", "tNAA mM")}
+            out["rows"].append({"label": label, "n": len(sel), "failed": failed,
+                                "cells": cells})
     return out
 
 
@@ -287,6 +343,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser.add_argument("--workers", type=int, default=2)
     parser.add_argument("--score-only", action="store_true",
                         help="score an existing run folder without running specproc")
+    parser.add_argument("--no-fit-cli", action="store_true",
+                        help="do not run `specproc fit --te1-ms` on the scans whose TE1 the "
+                             "manifest gives")
     parser.add_argument("--json", type=Path, default=None, help="also write the scores here")
     args = parser.parse_args(argv)
     corpus: Path = args.corpus
@@ -298,14 +357,20 @@ def main(argv: Sequence[str] | None = None) -> int:
     run_dir = args.output or corpus / ("run" if args.subset is None else
                                        f"run-subset-{args.subset}")
     cost = None
+    fit_cost = None
     if not args.score_only:
         cost = run_batch(manifest, run_dir, args.workers)
+        if not args.no_fit_cli:
+            fit_cost = run_fit_cli(corpus, manifest, run_dir / "fit-cli", args.workers)
     result = score(corpus, run_dir)
     result["cost"] = cost
+    result["fit_cli_cost"] = fit_cost
     print(f"specproc on the validation corpus: {result['n_scans']} scans, "
           f"{result['n_failed']} failed"
-          + (f"; run {cost['wall_s']:.0f} s wall, {cost['cpu_s']:.0f} s CPU (children)"
-             if cost else ""))
+          + (f"; batch {cost['wall_s']:.0f} s wall, {cost['cpu_s']:.0f} s CPU (children)"
+             if cost else "")
+          + (f"; specproc fit on {fit_cost['n']} scans ({fit_cost['n_failed']} failed) "
+             f"{fit_cost['wall_s']:.0f} s wall, {fit_cost['cpu_s']:.0f} s CPU" if fit_cost else ""))
     print()
     print(markdown(result))
     if args.json:
