@@ -257,7 +257,8 @@ def resolve_protocol(
         Overrides of the scan's sequence, field (T) and echo time (s).
     option, manifest : mapping, optional
         Sub-timings (``te1_s``, ``tm_s``, ``delays_s``) from the command line and from the
-        manifest.
+        manifest. An option the sequence has no use for is an error; a manifest or
+        configuration value that does not apply is ignored (one table serves every sequence).
     config : mapping, optional
         The full configuration (its ``[protocol]`` table is read) or ``None``.
     metabolites : sequence of str, optional
@@ -298,9 +299,15 @@ def resolve_protocol(
         "config": parse_timings(cfg_timings, what="configuration [protocol]"),
         "header": _header_timings(scan),
     }
+    key = TIMING_KEYS.get(seq)
+    unused = sorted(k for k in layers["option"] if k != key)
+    if unused:  # an explicit option that the sequence cannot use is a mistake, not a default
+        names = {"te1_s": "TE1 (PRESS)", "tm_s": "TM (STEAM)", "delays_s": "delays (semi-LASER)"}
+        raise InvalidInputError(
+            f"{', '.join(names[k] for k in unused)} given, but the scan's sequence is {seq}",
+            where)
     timings: dict[str, Any] = {}
     sources: dict[str, str] = {}
-    key = TIMING_KEYS.get(seq)
     if key is not None:
         for source in _SOURCES:
             if key in layers[source]:

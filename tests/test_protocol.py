@@ -51,8 +51,10 @@ def test_press_te1_precedence_option_manifest_config_header_assumed():
 
 def test_only_the_timing_of_the_sequence_is_used():
     steam = _scan(sequence="steam", tm_s=0.010, timings={"te1_s": 0.01})
-    p = resolve_protocol(steam, option={"te1_s": 0.012})
+    p = resolve_protocol(steam, manifest={"te1_s": 0.012})
     assert p.te1_s is None and p.tm_s == 0.010 and p.timing_sources == {"tm_s": "header"}
+    with pytest.raises(InvalidInputError, match=r"TE1 \(PRESS\) given, but the scan's sequence"):
+        resolve_protocol(steam, option={"te1_s": 0.012})
     p = resolve_protocol(steam, manifest={"tm_s": 0.02})
     assert (p.tm_s, p.timing_sources["tm_s"]) == (0.02, "manifest")
     with pytest.raises(InvalidInputError, match="mixing time"):
