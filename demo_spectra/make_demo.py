@@ -384,6 +384,215 @@ def _dataset_description() -> dict[str, Any]:
     }
 
 
+# ----------------------------------------------------------------------------- demo anatomy
+#: Invented anatomy of two volunteers: a synthetic head (2 mm, RAS+), GM/WM/CSF probability
+#: maps and the position of the posterior-cingulate voxel (20 mm cube, tilted about the
+#: left-right axis). Inside the voxel the head varies only along x: the interhemispheric
+#: fissure (CSF, |x| < csf_half_mm) between two medial grey-matter bands (up to gm_edge_mm),
+#: white matter beyond, so that the voxel's fractions are known in closed form
+#: (CSF = 2 csf_half / 20, GM = 2 (gm_edge - csf_half) / 20) and equal the ``tissue`` of SUBJECTS.
+ANATOMY: dict[str, dict[str, Any]] = {
+    "sub-01": {"centre_mm": (0.0, -40.0, 22.0), "tilt_deg": 15.0, "head_scale": 1.00},
+    "sub-02": {"centre_mm": (0.0, -42.0, 20.0), "tilt_deg": 8.0, "head_scale": 0.96},
+}
+ANATOMY_ZOOM_MM = 2.0
+VOXEL_SIDE_MM = 20.0
+#: Grid of the anatomical images (voxel centres at x = -74 ... 74 mm, so x = 0 is a centre).
+_ANAT_SHAPE = (75, 92, 76)
+_ANAT_ORIGIN_MM = (-74.0, -102.0, -70.0)
+#: T1-weighted intensities (arbitrary units, invented): WM bright, GM grey, CSF dark.
+_T1_INTENSITY = {"wm": 200.0, "gm": 125.0, "csf": 30.0, "scalp": 170.0, "skull": 15.0}
+
+
+def demo_voxel_affine(subject: str) -> np.ndarray:
+    """Voxel affine (RAS+ mm) of a demo volunteer's spectroscopy voxel."""
+    spec = ANATOMY[subject]
+    a = math.radians(spec["tilt_deg"])
+    rotation = np.array([[1.0, 0.0, 0.0], [0.0, math.cos(a), -math.sin(a)],
+                         [0.0, math.sin(a), math.cos(a)]])
+    affine = np.eye(4)
+    affine[:3, :3] = rotation * VOXEL_SIDE_MM
+    affine[:3, 3] = spec["centre_mm"]
+    return affine
+
+
+def _anatomy_affine() -> np.ndarray:
+    affine = np.diag([ANATOMY_ZOOM_MM] * 3 + [1.0])
+    affine[:3, 3] = _ANAT_ORIGIN_MM
+    return affine
+
+
+def _interval_overlap(centres: np.ndarray, half: float, low: float, high: float) -> np.ndarray:
+    """Share of each cell [c - half, c + half] inside [low, high] (exact partial volume)."""
+    return np.clip(np.minimum(centres + half, high) - np.maximum(centres - half, low), 0.0,
+                   2 * half) / (2 * half)
+
+
+def demo_tissue_maps(subject: str, tissue: dict[str, float]) -> dict[str, np.ndarray]:
+    """GM, WM, CSF partial-volume maps and a T1-weighted image of one demo volunteer.
+
+    The head is made of ellipsoids (scalp, skull, CSF rim, cortex, white matter, two lateral
+    ventricles) with partial volumes from 3 x 3 x 3 sub-samples per voxel, and the medial
+    structure above the corpus callosum (fissure and medial cortex) with the exact partial
+    volume along x.
+    """
+    scale = ANATOMY[subject]["head_scale"]
+    csf_half = tissue["csf"] * VOXEL_SIDE_MM / 2
+    gm_edge = csf_half + tissue["gm"] * VOXEL_SIDE_MM / 2
+    zoom = ANATOMY_ZOOM_MM
+    axes = [o + zoom * np.arange(n) for o, n in zip(_ANAT_ORIGIN_MM, _ANAT_SHAPE, strict=True)]
+    sub = (np.arange(3) - 1) * zoom / 3
+    acc = {k: np.zeros(_ANAT_SHAPE) for k in ("brain", "cortex_in", "head", "skull_in",
+                                               "ventricle", "callosum")}
+
+    def ellipsoid(x, y, z, semi):
+        return (x / semi[0]) ** 2 + (y / semi[1]) ** 2 + (z / semi[2]) ** 2 <= 1.0
+
+    for dx in sub:
+        for dy in sub:
+            for dz in sub:
+                x = axes[0][:, None, None] + dx
+                y = axes[1][None, :, None] + dy
+                z = axes[2][None, None, :] + dz - 5.0
+                acc["head"] += ellipsoid(x, y, z, np.array([72, 96, 74]) * scale)
+                acc["skull_in"] += ellipsoid(x, y, z, np.array([67, 91, 69]) * scale)
+                acc["brain"] += ellipsoid(x, y, z, np.array([63, 86, 64]) * scale)
+                acc["cortex_in"] += ellipsoid(x, y, z, np.array([59, 82, 60]) * scale)
+                acc["ventricle"] += ellipsoid(np.abs(x) - 8.0, y, z + 2.0, (5, 22, 7))
+                acc["callosum"] += z + 5.0 >= 3.0  # the medial structure lies above z = 3 mm
+    n_sub = len(sub) ** 3
+    frac = {k: v / n_sub for k, v in acc.items()}
+    # medial structure: exact along x, present above the callosum (z >= 3 mm)
+    fissure = _interval_overlap(axes[0], zoom / 2, -csf_half, csf_half)[:, None, None]
+    medial_gm = (_interval_overlap(axes[0], zoom / 2, -gm_edge, gm_edge)[:, None, None]
+                 - fissure)
+    above = frac["callosum"]
+    inner = frac["cortex_in"]  # white-matter core (before the medial structure)
+    csf = (frac["skull_in"] - frac["brain"]) + inner * (frac["ventricle"] + above * fissure
+                                                        * (1 - frac["ventricle"]))
+    gm = (frac["brain"] - inner) + inner * (1 - frac["ventricle"]) * above * medial_gm
+    wm = inner * (1 - frac["ventricle"]) * (1 - above * (fissure + medial_gm))
+    scalp = frac["head"] - frac["skull_in"]
+    t1 = (_T1_INTENSITY["wm"] * wm + _T1_INTENSITY["gm"] * gm + _T1_INTENSITY["csf"] * csf
+          + _T1_INTENSITY["scalp"] * scalp * 0.5 + _T1_INTENSITY["skull"] * scalp * 0.5)
+    return {"gm": gm, "wm": wm, "csf": csf, "t1": t1}
+
+
+def _write_nifti_uint8(path: Path, values: np.ndarray, affine: np.ndarray, *,
+                       slope: float) -> None:
+    """A 3-D NIfTI-1 image of uint8 samples with a scale factor, written atomically."""
+    import nibabel as nib
+
+    from specproc._atomic import atomic_path
+
+    data = np.clip(np.round(values / slope), 0, 255).astype(np.uint8)
+    img = nib.Nifti1Image(data, affine)
+    img.header.set_xyzt_units("mm")
+    img.header.set_slope_inter(slope, 0.0)
+    img.header.set_qform(affine, code=1)
+    img.header.set_sform(affine, code=1)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    with atomic_path(path) as tmp:
+        nib.save(img, str(tmp))
+
+
+def set_voxel_geometry(path: Path, affine: np.ndarray) -> None:
+    """Give a NIfTI-MRS file the voxel affine (sform and qform, code 1: scanner) in place."""
+    import nibabel as nib
+
+    from specproc._atomic import atomic_path
+
+    img = nib.load(str(path))
+    header = img.header.copy()
+    header.set_sform(affine, code=1)
+    header.set_qform(affine, code=1)
+    zooms = list(header.get_zooms())
+    zooms[:3] = [float(v) for v in np.linalg.norm(affine[:3, :3], axis=0)]
+    header.set_zooms(zooms)
+    data = np.asanyarray(img.dataobj)
+    with atomic_path(path) as tmp:
+        nib.save(type(img)(data, None, header), str(tmp))
+
+
+def anatomy_paths(out_dir: Path, subject: str, session: str) -> dict[str, Path]:
+    """Where a demo volunteer's T1-weighted image and probability maps are written."""
+    stem = f"{subject}_{session}"
+    seg = out_dir / "derivatives" / "segmentation" / subject / session / "anat"
+    return {
+        "anatomy": out_dir / subject / session / "anat" / f"{stem}_T1w.nii.gz",
+        **{t: seg / f"{stem}_label-{t.upper()}_probseg.nii.gz" for t in ("gm", "wm", "csf")},
+    }
+
+
+def write_demo_anatomy(out_dir: Path) -> dict[str, dict[str, str]]:
+    """Write the anatomy of the volunteers of :data:`ANATOMY` and give their scans the voxel.
+
+    Returns the paths (relative to ``out_dir``) per subject, and checks that specproc's
+    tissue fractions of each voxel are the generated ones (within 0.002).
+    """
+    from specproc.tissue import TissueMapFiles, tissue_fractions_from_files
+
+    written: dict[str, dict[str, str]] = {}
+    affine = _anatomy_affine()
+    for spec in SUBJECTS:
+        subject = spec["subject"]
+        if subject not in ANATOMY:
+            continue
+        session = spec["session"]
+        images = demo_tissue_maps(subject, spec["tissue"])
+        paths = anatomy_paths(out_dir, subject, session)
+        _write_nifti_uint8(paths["anatomy"], images["t1"], affine, slope=1.0)
+        for t in ("gm", "wm", "csf"):
+            _write_nifti_uint8(paths[t], images[t], affine, slope=1.0 / 250.0)
+        mrs = out_dir / subject / session / "mrs"
+        for suffix in ("svs", "mrsref"):
+            set_voxel_geometry(mrs / f"{subject}_{session}_{suffix}.nii.gz",
+                               demo_voxel_affine(subject))
+        measured = tissue_fractions_from_files(
+            mrs / f"{subject}_{session}_svs.nii.gz",
+            TissueMapFiles(gm=paths["gm"], wm=paths["wm"], csf=paths["csf"],
+                           anatomy=paths["anatomy"]))
+        for t in ("gm", "wm", "csf"):
+            if abs(measured.fractions[t] - spec["tissue"][t]) > 0.002:
+                raise RuntimeError(f"{subject}: {t} fraction {measured.fractions[t]:.4f} from "
+                                   f"the anatomy, {spec['tissue'][t]} generated")
+        written[subject] = {k: _relative(p, out_dir) for k, p in paths.items()}
+    return written
+
+
+
+#: Manifest columns that point to a volunteer's segmentation (read by specproc.batch).
+ANATOMY_COLUMNS: tuple[str, ...] = ("gm_map", "wm_map", "csf_map", "anatomy")
+
+
+def with_anatomy_columns(rows: list[dict[str, Any]],
+                         anatomy: dict[str, dict[str, str]]) -> list[dict[str, Any]]:
+    """Manifest rows with the map columns; a volunteer with maps gets no tissue numbers."""
+    out = []
+    for row in rows:
+        paths = anatomy.get(row["subject"])
+        row = {k: v for k, v in row.items() if k not in ANATOMY_COLUMNS}
+        if paths is not None:
+            row.update(gm="", wm="", csf="")
+        for column in ANATOMY_COLUMNS:
+            key = "anatomy" if column == "anatomy" else column.removesuffix("_map")
+            row[column] = "" if paths is None else paths[key]
+        out.append(row)
+    return out
+
+
+def add_anatomy(out_dir: Path) -> None:
+    """Add the demo anatomy to an existing study (scans, manifest) without regenerating it."""
+    with open(out_dir / "manifest.tsv", encoding="utf-8", newline="") as handle:
+        rows = list(csv.DictReader(handle, delimiter="\t"))
+    rows = with_anatomy_columns(rows, write_demo_anatomy(out_dir))
+    buffer = io.StringIO()
+    writer = csv.DictWriter(buffer, fieldnames=list(rows[0]), delimiter="\t",
+                            lineterminator="\n")
+    writer.writeheader()
+    writer.writerows(rows)
+    write_text(out_dir / "manifest.tsv", buffer.getvalue())
+
 def make_demo(out_dir: Path) -> dict[str, Any]:
     """Write the whole study into ``out_dir`` (files are replaced atomically)."""
     rng = np.random.default_rng(SEED)
@@ -410,6 +619,7 @@ def make_demo(out_dir: Path) -> dict[str, Any]:
         })
         scans.append({"scan": _relative(svs, out_dir), "water": _relative(ref, out_dir),
                       **truth})
+    rows = with_anatomy_columns(rows, write_demo_anatomy(out_dir))
     buffer = io.StringIO()
     writer = csv.DictWriter(buffer, fieldnames=list(rows[0]), delimiter="\t",
                             lineterminator="\n")
@@ -452,7 +662,14 @@ def main() -> None:
                         help="folder of the study (default: beside this script)")
     parser.add_argument("--clean", action="store_true",
                         help="remove the subject folders first")
+    parser.add_argument("--anatomy-only", action="store_true",
+                        help="only (re)write the volunteers' anatomy, voxel geometry and the "
+                             "manifest's map columns of an existing study")
     args = parser.parse_args()
+    if args.anatomy_only:
+        add_anatomy(args.out)
+        print(f"wrote the demo anatomy into {args.out}")
+        return
     if args.clean:
         for spec in SUBJECTS:
             shutil.rmtree(args.out / spec["subject"], ignore_errors=True)

@@ -126,3 +126,53 @@ def test_bad_inputs_give_one_line_exit_2_and_write_nothing(phantom, tmp_path, ca
                 "sum": "not about 1", "shear": "non-orthogonal", "png-no-anatomy": "--anatomy",
                 "half-maps": "all three"}[case]
     assert expected in lines[0]
+
+
+def test_methods_rows_say_where_the_voxel_was_and_how_fractions_were_obtained(phantom):
+    from specproc.report.voxel import tissue_methods_rows, with_tissue_methods
+    from specproc.tissue import TissueMapFiles, tissue_fractions_from_files
+
+    result = tissue_fractions_from_files(
+        phantom["scan"], TissueMapFiles(gm=phantom["gm"], wm=phantom["wm"], csf=phantom["csf"]))
+    rows = tissue_methods_rows(result.to_dict())
+    items = {r["item"]: r["value"] for r in rows}
+    assert "supersampled" in items["tissue fractions: method"]
+    assert items["segmentation"] == "csf.nii.gz, gm.nii.gz, wm.nii.gz"
+    assert "centre (26.0, 4.0, -3.0) mm" in items["voxel position and orientation"]
+    table = [{"section": "2 Acquisition", "item": "a", "value": ""},
+             {"section": "3 Analysis", "item": "b", "value": ""},
+             {"section": "4 Data quality", "item": "c", "value": ""}]
+    placed = with_tissue_methods(table, result.to_dict())
+    sections = [r["section"] for r in placed]
+    assert sections == sorted(sections)  # each row at the end of its own section
+    assert tissue_methods_rows(None) == []
+    given = tissue_methods_rows({"method": "given", "fractions": {"gm": 0.6, "wm": 0.3,
+                                                                  "csf": 0.1}})
+    assert "given by the user" in given[-1]["value"]
+
+
+def test_manifest_columns_point_to_the_maps(phantom, tmp_path):
+    from specproc.batch.manifest import read_manifest
+    from specproc.errors import InvalidInputError
+
+    folder = phantom["scan"].parent
+    manifest = folder / "cohort.tsv"
+    manifest.write_text(
+        "scan\tgm_map\twm_map\tcsf_map\tanatomy\tlabels\tlabel_table\n"
+        "svs.nii.gz\tgm.nii.gz\twm.nii.gz\tcsf.nii.gz\tt1.nii.gz\t\t\n")
+    (entry,) = read_manifest(manifest)
+    assert entry.tissue is None
+    assert entry.tissue_maps.gm == folder.resolve() / "gm.nii.gz"
+    assert entry.tissue_maps.anatomy == folder.resolve() / "t1.nii.gz"
+    assert entry.describe()["tissue_maps"]["csf"].endswith("csf.nii.gz")
+    manifest.write_text("scan\tlabels\tlabel_table\nsvs.nii.gz\tseg.nii.gz\tgm=2,wm=3,csf=1\n")
+    (entry,) = read_manifest(manifest)
+    assert entry.tissue_maps.labels.name == "seg.nii.gz"
+    for text, match in (
+        ("scan\tgm\twm\tcsf\tlabels\nsvs.nii.gz\t0.6\t0.3\t0.1\tseg.nii.gz\n", "not both"),
+        ("scan\tgm_map\nsvs.nii.gz\tgm.nii.gz\n", "all three"),
+        ("scan\tlabels\nsvs.nii.gz\tmissing.nii.gz\n", "does not exist"),
+    ):
+        manifest.write_text(text)
+        with pytest.raises(InvalidInputError, match=match):
+            read_manifest(manifest)

@@ -21,6 +21,15 @@ column         required  meaning
 ``gm``         no        grey-matter volume fraction of the voxel, 0-1
 ``wm``         no        white-matter volume fraction, 0-1
 ``csf``        no        CSF volume fraction, 0-1 (give all three or none; they must sum to 1)
+``gm_map``     no        grey-matter probability map (NIfTI) of the subject's anatomy: with
+                         ``wm_map`` and ``csf_map`` instead of the three numbers; the fractions
+                         are computed from the scan's voxel (:mod:`specproc.tissue`)
+``wm_map``     no        white-matter probability map
+``csf_map``    no        CSF probability map
+``labels``     no        one label image instead of the three maps
+``label_table`` no       label values of ``labels`` (``gm=2,wm=3,csf=1`` or a table file;
+                         default 1 CSF, 2 GM, 3 WM)
+``anatomy``    no        anatomical image of the maps (grid checked; drawn in the voxel picture)
 ``te_ms``      no        echo time, ms (overrides the file's header)
 ``tm_ms``      no        STEAM mixing time, ms (overrides the header)
 ``te1_ms``     no        PRESS first echo time, ms (TE2 = TE - TE1; overrides the configuration
@@ -65,6 +74,7 @@ from specproc.errors import InvalidInputError
 
 __all__ = [
     "MANIFEST_COLUMNS",
+    "MAP_COLUMNS",
     "ScanEntry",
     "clean_scan_id",
     "discover_bids",
@@ -77,8 +87,11 @@ __all__ = [
 #: Columns a manifest may have; only ``scan`` is required.
 MANIFEST_COLUMNS: tuple[str, ...] = (
     "scan", "water", "subject", "session", "scan_id", "gm", "wm", "csf",
-    "te_ms", "tm_ms", "tr_ms", "sequence", "te1_ms", "delays_ms", "kind",
+    "te_ms", "tm_ms", "tr_ms", "sequence", "te1_ms", "delays_ms", "kind", *(
+        "gm_map", "wm_map", "csf_map", "labels", "label_table", "anatomy"),
 )
+#: Manifest columns that name segmentation files (paths relative to the manifest).
+MAP_COLUMNS: tuple[str, ...] = ("gm_map", "wm_map", "csf_map", "labels", "anatomy")
 
 _SAFE = re.compile(r"[^A-Za-z0-9._+-]+")
 _NII = re.compile(r"\.nii(\.gz)?$")
@@ -103,6 +116,8 @@ class ScanEntry:
         Labels ("" when not given).
     tissue : mapping of str to float, or None
         Volume fractions ``gm``, ``wm``, ``csf``.
+    tissue_maps : TissueMapFiles or None
+        Segmentation files the fractions are computed from (instead of ``tissue``).
     overrides : mapping of str to Any
         Acquisition values that replace the file's header: ``te_s``, ``tm_s``, ``tr_s`` (s),
         ``sequence``.
@@ -127,6 +142,7 @@ class ScanEntry:
     overrides: Mapping[str, Any] = field(default_factory=dict)
     timings: Mapping[str, Any] = field(default_factory=dict)
     kind: str = ""
+    tissue_maps: Any = None
 
     @property
     def is_phantom(self) -> bool:
@@ -142,6 +158,7 @@ class ScanEntry:
             "scan": self.scan_label,
             "water": self.water_label,
             "tissue": None if self.tissue is None else dict(sorted(self.tissue.items())),
+            "tissue_maps": None if self.tissue_maps is None else self.tissue_maps.describe(),
             "overrides": dict(sorted(self.overrides.items())),
             **({"timings": {k: list(v) if isinstance(v, tuple) else v
                             for k, v in sorted(self.timings.items())}} if self.timings else {}),
@@ -238,6 +255,25 @@ def _tissue(values: Mapping[str, float], line: int, where: Path) -> dict[str, fl
     return {k: float(checked[k]) for k in ("gm", "wm", "csf")}
 
 
+def _tissue_maps(row: Mapping[str, str], base: Path, line: int, where: Path) -> Any:
+    """The segmentation files of a manifest row (:class:`specproc.tissue.TissueMapFiles`)."""
+    if not any(c in row for c in (*MAP_COLUMNS, "label_table")):
+        return None
+    from specproc.tissue import TissueMapFiles
+
+    paths = {c: _resolve(base, row[c], c, line, where) for c in MAP_COLUMNS if c in row}
+    table = row.get("label_table")
+    if table is not None:
+        candidate = base / table.strip()
+        table = str(candidate.resolve()) if candidate.is_file() else table.strip()
+    try:
+        return TissueMapFiles(gm=paths.get("gm_map"), wm=paths.get("wm_map"),
+                              csf=paths.get("csf_map"), labels=paths.get("labels"),
+                              label_table=table, anatomy=paths.get("anatomy"))
+    except InvalidInputError as exc:
+        raise InvalidInputError(f"line {line}: {exc.message}", where) from None
+
+
 def _dialect(path: Path, header: str) -> str:
     suffix = path.suffix.lower()
     if suffix == ".tsv":
@@ -328,6 +364,10 @@ def read_manifest(path: str | os.PathLike[str]) -> list[ScanEntry]:
             tissue = _tissue(
                 {t: _number(row[t], t, line, where) for t in given}, line, where
             )
+        tissue_maps = _tissue_maps(row, base, line, where)
+        if tissue_maps is not None and tissue is not None:
+            raise InvalidInputError(
+                f"line {line}: give tissue fractions (gm, wm, csf) or maps, not both", where)
         overrides: dict[str, Any] = {}
         for column in ("te_ms", "tm_ms", "tr_ms"):
             if column in row:
@@ -352,6 +392,7 @@ def read_manifest(path: str | os.PathLike[str]) -> list[ScanEntry]:
             scan_label=row["scan"].strip(), water_label=row.get("water", "").strip(),
             subject=subject, session=session, tissue=tissue, overrides=overrides,
             timings=timings, kind=row.get("kind", "").strip().lower(),
+            tissue_maps=tissue_maps,
         ))
     if not entries:
         raise InvalidInputError("the manifest lists no scans", where)

@@ -10,12 +10,14 @@ axial panels, anterior on the right of the sagittal panel).
 
 Pure functions: :func:`sample_plane` and :func:`plane_outline_mm` compute, :func:`plot_voxel`
 draws a matplotlib figure (Agg, no display), :func:`voxel_picture_png` reads the files and
-returns PNG bytes.
+returns PNG bytes. :func:`tissue_methods_rows` gives the rows of the report's methods table on
+the voxel and its tissue fractions, :func:`with_tissue_methods` places them in a table.
 """
 
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -28,7 +30,9 @@ __all__ = [
     "plane_outline_mm",
     "plot_voxel",
     "sample_plane",
+    "tissue_methods_rows",
     "voxel_picture_png",
+    "with_tissue_methods",
 ]
 
 #: The three panels: name, the world axis held fixed, and the (horizontal, vertical) world axes.
@@ -182,8 +186,8 @@ def plot_voxel(anatomy: np.ndarray, affine: np.ndarray, voxel: Any, *,
                                         low_mm=low, high_mm=high)
                 layer = np.clip(layer, 0.0, 1.0)
                 rgba[..., :3] += layer[..., None] * np.asarray(colour)
-                rgba[..., 3] += 0.38 * layer
-            rgba[..., 3] = np.clip(rgba[..., 3], 0.0, 0.38)
+                rgba[..., 3] += 0.3 * layer
+            rgba[..., 3] = np.clip(rgba[..., 3], 0.0, 0.3)
             ax.imshow(np.clip(rgba, 0.0, 1.0), origin="lower", extent=extent,
                       interpolation="nearest")
         outline = plane_outline_mm(voxel, k)
@@ -245,3 +249,60 @@ def voxel_picture_png(result: Any, files: Any, *, title: str | None = None,
     fig = plot_voxel(anatomy, affine, result.voxel, maps=maps,
                      fractions=result.as_mapping(), title=title)
     return figure_png_bytes(fig, dpi=100)
+
+
+def tissue_methods_rows(tissue_info: Mapping[str, Any] | None) -> list[dict[str, str]]:
+    """Rows of the report's methods table on where the voxel was and how its tissue fractions
+    were obtained (``section``, ``item``, ``value``; plain text).
+
+    Parameters
+    ----------
+    tissue_info : mapping or None
+        :meth:`specproc.tissue.TissueFractions.to_dict`, or ``{"method": "given", "fractions":
+        {...}}`` for numbers typed by the user; ``None`` gives no rows.
+    """
+    if not tissue_info:
+        return []
+    rows: list[dict[str, str]] = []
+    voxel = tissue_info.get("voxel")
+    if voxel:
+        centre = ", ".join(f"{v:.1f}" for v in voxel["centre_mm"])
+        sides = " x ".join(f"{v:.1f}" for v in voxel["size_mm"])
+        tilt = ", ".join(f"{v:.1f}" for v in voxel["edge_tilt_deg"])
+        rows.append({"section": "2 Acquisition", "item": "voxel position and orientation",
+                     "value": f"centre ({centre}) mm, {sides} mm, edges tilted ({tilt})° from "
+                              f"the scanner axes ({voxel['method']})"})
+    fractions = tissue_info.get("fractions") or {}
+    if fractions:
+        text = ", ".join(f"{t.upper()} {float(fractions[t]):.3f}" for t in ("gm", "wm", "csf")
+                         if t in fractions)
+        rows.append({"section": "3 Analysis", "item": "tissue fractions: values",
+                     "value": text})
+    method = tissue_info.get("method")
+    if method == "given":
+        method = "volume fractions given by the user (not computed by specproc)"
+    if method:
+        rows.append({"section": "3 Analysis", "item": "tissue fractions: method",
+                     "value": str(method)})
+    sources = tissue_info.get("sources") or {}
+    if sources:
+        names = sorted({Path(str(p)).name for p in sources.values()})
+        rows.append({"section": "3 Analysis", "item": "segmentation",
+                     "value": ", ".join(names)})
+    if "unsegmented" in tissue_info:
+        rows.append({"section": "3 Analysis", "item": "unsegmented share of the voxel",
+                     "value": f"{float(tissue_info['unsegmented']):.3f} (not in the GM, WM or "
+                              "CSF map; the fractions are normalised to their sum)"})
+    return rows
+
+
+def with_tissue_methods(rows: Sequence[Mapping[str, str]],
+                        tissue_info: Mapping[str, Any] | None) -> list[dict[str, str]]:
+    """The methods table ``rows`` with :func:`tissue_methods_rows` placed at the end of their
+    sections (a section that is not there yet is added at the end)."""
+    out = [dict(r) for r in rows]
+    for extra in tissue_methods_rows(tissue_info):
+        last = max((k for k, r in enumerate(out) if r.get("section") == extra["section"]),
+                   default=len(out) - 1)
+        out.insert(last + 1, extra)
+    return out
