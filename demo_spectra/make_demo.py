@@ -12,6 +12,9 @@ BIDS-like layout::
       sub-01/ses-01/mrs/sub-01_ses-01_svs.nii.gz      water-suppressed transients
       sub-01/ses-01/mrs/sub-01_ses-01_mrsref.nii.gz   unsuppressed water reference
       (each .nii.gz with a BIDS .json sidecar)
+      sub-01/ses-01/anat/sub-01_ses-01_T1w.nii.gz      synthetic anatomy (sub-01, sub-02)
+      derivatives/segmentation/sub-01/ses-01/anat/sub-01_ses-01_label-GM_probseg.nii.gz
+                                                      GM, WM, CSF maps of that anatomy
       ...
 
 Scenario ("posterior cingulate voxel, 20 x 20 x 20 mm"): adult brain concentrations (mmol per

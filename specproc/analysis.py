@@ -71,7 +71,8 @@ __all__ = [
     "write_scan_outputs",
 ]
 
-#: Output file names of a folder with all outputs, by role.
+#: Output file names of a folder with all outputs, by role (``voxel.png`` only when the
+#: tissue fractions came from a segmentation with its anatomical image).
 OUTPUT_FILES: Mapping[str, str] = {
     "results": "results.tsv",
     "json": "fit.json",
@@ -79,6 +80,7 @@ OUTPUT_FILES: Mapping[str, str] = {
     "figure_png": "fit.png",
     "figure_pdf": "fit.pdf",
     "preprocess_png": "preprocess.png",
+    "voxel_png": "voxel.png",
     "report": "report.html",
 }
 
@@ -93,7 +95,7 @@ OUTPUT_MODES: tuple[str, ...] = ("all", "tables")
 #: Roles written in each mode.
 _MODE_ROLES: Mapping[str, tuple[str, ...]] = {
     "all": ("results", "json", "config", "figure_png", "figure_pdf", "preprocess_png",
-            "report"),
+            "voxel_png", "report"),
     "tables": ("results", "json", "config", "state"),
 }
 
@@ -214,6 +216,11 @@ class ScanResult:
         Quality metrics and flags.
     tissue : dict or None
         Validated GM/WM/CSF volume fractions.
+    tissue_info : dict or None
+        How they were obtained: :meth:`specproc.tissue.TissueFractions.to_dict` (voxel, maps,
+        method, unsegmented remainder) or ``{"method": "given", "fractions": ...}``.
+    tissue_planes : VoxelPlanes or None
+        The voxel on the anatomy (:mod:`specproc.report.voxel`), drawn as ``voxel.png``.
     config : dict
         The full configuration used.
     config_source : str
@@ -252,6 +259,8 @@ class ScanResult:
     versions: dict[str, str]
     notes: tuple[str, ...] = field(default_factory=tuple)
     elapsed_s: float = 0.0
+    tissue_info: dict[str, Any] | None = None
+    tissue_planes: Any = None
 
     # ------------------------------------------------------------------ summaries
     @property
@@ -317,6 +326,7 @@ class ScanResult:
             "caution": "Research use only; not a medical device.",
             "versions": self.versions,
             "inputs": {**self.inputs, "tissue_fractions": self.tissue, "title": self.title},
+            "tissue": self.tissue_info,
             "header": {"scan": dict(self.scan.header),
                        "water": None if self.water is None else dict(self.water.header)},
             "settings": {"config_source": self.config_source, "config": self.config,
@@ -475,7 +485,7 @@ def analyse_scan(
     scan: Any,
     water: Any = None,
     *,
-    tissue: Mapping[str, float] | None = None,
+    tissue: Any = None,
     basis: Any = None,
     config: Any = None,
     protocol: Any = None,
@@ -490,10 +500,12 @@ def analyse_scan(
         through the same steps).
     water : Scan or path, optional
         Unsuppressed water reference (same points, dwell time and coils).
-    tissue : mapping, optional
-        GM/WM/CSF volume fractions of the voxel (keys ``gm``, ``wm``, ``csf``). With a water
-        reference they give water-referenced concentrations; without them only ratios are
-        computed, and the notes say so.
+    tissue : mapping or TissueFractions, optional
+        GM/WM/CSF volume fractions of the voxel (keys ``gm``, ``wm``, ``csf``), or a
+        :class:`~specproc.tissue.TissueFractions` computed from the subject's segmented
+        anatomy (:func:`specproc.tissue.tissue_fractions_from_files`; its method, maps and
+        voxel picture are kept). With a water reference they give water-referenced
+        concentrations; without them only ratios are computed, and the notes say so.
     basis : BasisSet or path, optional
         Basis to fit with; default simulated for ``protocol`` (cached).
     config : None, path or mapping, optional
@@ -539,7 +551,15 @@ def analyse_scan(
     thresholds = QCThresholds.from_config(cfg.get("qc"))
     relaxation_overrides = cfg.get("relaxation") or None
     water_constants = water_settings(cfg.get("water"))
+    tissue_info: dict[str, Any] | None = None
+    tissue_planes = None
+    if hasattr(tissue, "as_mapping"):  # a TissueFractions from segmentation maps
+        tissue_info = tissue.to_dict()
+        tissue_planes = getattr(tissue, "planes", None)
+        tissue = tissue.as_mapping()
     tissue_fractions = None if tissue is None else validate_tissue_fractions(tissue)
+    if tissue_fractions is not None and tissue_info is None:
+        tissue_info = {"method": "given", "fractions": dict(tissue_fractions)}
     label = title if title is not None else _default_title(scan)
     notes: list[str] = []
 
@@ -622,7 +642,8 @@ def analyse_scan(
         config=cfg, config_source=cfg_source, qc_thresholds=thresholds.to_dict(),
         relaxation_overrides=relaxation_overrides, inputs=inputs,
         versions=software_versions(), notes=tuple(notes),
-        elapsed_s=time.perf_counter() - start,
+        elapsed_s=time.perf_counter() - start, tissue_info=tissue_info,
+        tissue_planes=tissue_planes,
     )
 
 
@@ -708,11 +729,18 @@ def write_scan_outputs(result: ScanResult, outdir: str | os.PathLike[str], *,
                         blobs["preprocess_png"]))
     except Exception as exc:  # an optional figure must not stop the results
         notes.append(f"preprocessing figure not drawn: {type(exc).__name__}: {exc}")
+    if result.tissue_planes is not None:
+        from specproc.report.voxel import VOXEL_CAPTION, voxel_picture_png
+
+        blobs["voxel_png"] = voxel_picture_png(result.tissue_planes, fractions=result.tissue,
+                                               title=result.title)
+        figures.append((VOXEL_CAPTION, blobs["voxel_png"]))
     texts["report"] = render_report(
         title=result.title, scan=result.scan, water=result.water, pre=result.preprocessing,
         fit=result.fit, quant=result.quantification, qc=result.qc, rows=rows,
         figures=figures, versions=result.versions, basis_info=result.basis_info,
-        water_info=result.water_info, tissue=result.tissue, notes=notes,
+        water_info=result.water_info, tissue=result.tissue, tissue_info=result.tissue_info,
+        notes=notes,
         links={"fit.json": OUTPUT_FILES["json"], "config.toml": OUTPUT_FILES["config"],
                "results.tsv": OUTPUT_FILES["results"], "fit.pdf": OUTPUT_FILES["figure_pdf"]},
         cfg_source=result.config_source,

@@ -114,10 +114,38 @@ def test_manifest_matches_files_and_truth() -> None:
 
     entries = read_manifest(DEMO / "manifest.tsv")
     assert {f"sub-{e.subject}_ses-{e.session}" for e in entries} == set(SCANS)
+    from_anatomy = 0
     for entry in entries:
         assert entry.scan_path.is_file() and entry.water_path.is_file()
         truth = SCANS[f"sub-{entry.subject}_ses-{entry.session}"]
-        assert entry.tissue == truth["tissue_fractions"]
+        if entry.tissue_maps is not None:  # fractions from the volunteer's anatomy
+            from specproc.tissue import tissue_fractions_from_files
+
+            measured = tissue_fractions_from_files(entry.scan_path, entry.tissue_maps,
+                                                   picture=False)
+            assert measured.fractions == pytest.approx(truth["tissue_fractions"], abs=0.002)
+            from_anatomy += 1
+        else:
+            assert entry.tissue == truth["tissue_fractions"]
+    assert from_anatomy >= 2
+
+
+def test_fractions_from_anatomy_reach_fit_json_and_the_report(demo_run: tuple[str, Path]
+                                                               ) -> None:
+    _, out = demo_run
+    for key in ("sub-01_ses-01", "sub-02_ses-01"):
+        doc = _fit_json(out, key)
+        tissue = doc["tissue"]
+        assert "supersampled" in tissue["method"]
+        assert tissue["fractions"] == pytest.approx(SCANS[key]["tissue_fractions"], abs=0.002)
+        assert doc["outputs"]["voxel_png"] == "voxel.png"
+        folder = out / "scans" / f"{key}_svs"
+        assert (folder / "voxel.png").read_bytes().startswith(b"\x89PNG")
+        report = (folder / "report.html").read_text(encoding="utf-8")
+        assert "voxel position and orientation" in report and "Voxel on the anatomy" in report
+    given = _fit_json(out, "sub-03_ses-01")["tissue"]
+    assert given["method"] == "given" and "voxel_png" not in _fit_json(out, "sub-03_ses-01")[
+        "outputs"]
 
 
 def test_generator_reproduces_the_committed_files(

@@ -134,6 +134,11 @@ def _prepare(entries: Sequence[ScanEntry], *, config: Mapping[str, Any], config_
         try:
             inputs["scan_sha256"] = file_sha256(entry.scan_path)
             inputs["water_sha256"] = file_sha256(entry.water_path)
+            if entry.tissue_maps is not None:  # a changed map reruns the scan
+                inputs["tissue_maps_sha256"] = {
+                    role: file_sha256(Path(path)) for role, path in
+                    entry.tissue_maps.describe().items()
+                    if path is not None and role != "label_table"}
             scan = apply_overrides(load(entry.scan_path), entry.overrides)
             protocol = resolve_protocol(scan, manifest=entry.timings, config=config,
                                         metabolites=metabolites, macromolecules=macromolecules,
@@ -617,6 +622,8 @@ def _run_entries(entries: Sequence[ScanEntry], out: Path, cfg: dict[str, Any],
                     "protocol": prep.protocol,
                     "config": cfg,
                     "tissue": None if prep.entry.tissue is None else dict(prep.entry.tissue),
+                    "tissue_maps": None if prep.entry.tissue_maps is None
+                    else prep.entry.tissue_maps.describe(),
                     "overrides": dict(prep.entry.overrides),
                     "inputs": prep.inputs,
                     "outputs": outputs,

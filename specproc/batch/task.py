@@ -251,8 +251,16 @@ def process_one(task: Mapping[str, Any]) -> dict[str, Any]:
     basis = _load_basis(task["basis_path"])
     scan = apply_overrides(load(task["scan_path"]), task.get("overrides") or {})
     water = load(task["water_path"]) if task.get("water_path") else None
+    tissue = task.get("tissue")
+    if task.get("tissue_maps"):
+        from specproc.tissue import TissueMapFiles, tissue_fractions_from_files
+
+        paths = {k: None if v is None or k == "label_table" else Path(v)
+                 for k, v in task["tissue_maps"].items()}
+        files = TissueMapFiles(**{**paths, "label_table": task["tissue_maps"].get("label_table")})
+        tissue = tissue_fractions_from_files(task["scan_path"], files)
     result = analyse_scan(
-        scan, water, tissue=task.get("tissue"), basis=basis, protocol=task.get("protocol"),
+        scan, water, tissue=tissue, basis=basis, protocol=task.get("protocol"),
         config=task.get("config"), title=task["key"],
     )
     write_scan_outputs(result, folder, outputs=task.get("outputs", "all"))
@@ -271,7 +279,9 @@ def run_task(task: Mapping[str, Any]) -> dict[str, Any]:
     task : mapping
         ``key``, ``scan_path``, ``water_path`` (or None), ``out_dir``, ``basis_path``,
         ``protocol`` (the :class:`~specproc.protocol.Protocol` of the basis), ``config``
-        (dict), ``tissue`` (dict or None), ``overrides`` (dict), ``inputs`` (the hashes
+        (dict), ``tissue`` (dict or None), ``tissue_maps`` (the segmentation files of
+        :class:`~specproc.tissue.TissueMapFiles` as a dict, or None: the fractions are then
+        computed from them), ``overrides`` (dict), ``inputs`` (the hashes
         recorded in ``done.json``).
 
     Returns

@@ -1,11 +1,13 @@
-"""``specproc fit SCAN [--water REF] [--gm F --wm F --csf F] [--basis FILE | auto] -o OUTDIR``.
+"""``specproc fit SCAN [--water REF] [--gm F --wm F --csf F | --gm-map GM ...] -o OUTDIR``.
 
 Analyses one scan exactly as a cohort run analyses each of its scans: load, then
 :func:`specproc.analysis.analyse_scan` (preprocessing, basis, fit, quantification, QC), then
 :func:`specproc.analysis.write_scan_outputs` into OUTDIR (``results.tsv``, ``fit.json``,
 ``config.toml``, ``fit.png``, ``fit.pdf``, ``preprocess.png``, ``report.html``). With a water
 reference and the voxel's tissue fractions the results are water-referenced concentrations;
-otherwise ratios to tCr.
+otherwise ratios to tCr. The fractions are numbers (``--gm/--wm/--csf``) or are computed from
+the subject's segmentation (``--gm-map/--wm-map/--csf-map`` or ``--labels``, with
+``--anatomy`` for the voxel picture ``voxel.png``), exactly as ``specproc tissue`` does.
 
 Without ``--basis`` (or with ``--basis auto``) the basis is simulated, and cached, for the
 scan's protocol (:mod:`specproc.protocol`). ``--te-ms``, ``--tr-ms``, ``--sequence`` and
@@ -16,11 +18,13 @@ precedence; ``--field`` sets the field of the simulated basis only.
 
 from __future__ import annotations
 
+import functools
 from pathlib import Path
 from typing import Any
 
 import click
 
+from specproc.cli.tissue import map_file_options, map_files_from_options
 from specproc.errors import InvalidInputError
 from specproc.protocol import SHORT_TE_S
 
@@ -69,6 +73,7 @@ def tissue_option(gm: float | None, wm: float | None, csf: float | None
 @click.option("--gm", type=float, default=None, help="Grey-matter volume fraction of the voxel.")
 @click.option("--wm", type=float, default=None, help="White-matter volume fraction.")
 @click.option("--csf", type=float, default=None, help="CSF volume fraction (the three sum to 1).")
+@functools.partial(map_file_options, short=False)
 @click.option("--basis", "basis_choice", metavar="FILE|auto", default=None,
               help="Basis set file (.npz from `specproc basis simulate`), or 'auto' (default): "
                    "simulate it for the scan's protocol.")
@@ -98,7 +103,9 @@ def tissue_option(gm: float | None, wm: float | None, csf: float | None
               type=click.Path(file_okay=False, path_type=Path),
               help="Output folder (created if needed).")
 def fit_command(scan_file: Path, water_file: Path | None, gm: float | None, wm: float | None,
-                csf: float | None, basis_choice: str | None, config_file: Path | None,
+                csf: float | None, gm_map: Path | None, wm_map: Path | None,
+                csf_map: Path | None, label_map: Path | None, label_table: str | None,
+                anatomy: Path | None, basis_choice: str | None, config_file: Path | None,
                 field_t: float | None, te_ms: float | None, tr_ms: float | None,
                 sequence: str | None, te1_ms: float | None, tm_ms: float | None,
                 delays_ms: str | None, macromolecules: bool | None, title: str | None,
@@ -115,7 +122,10 @@ def fit_command(scan_file: Path, water_file: Path | None, gm: float | None, wm: 
         raise InvalidInputError("the output must be a folder", out_dir)
     if field_t is not None and not field_t > 0:
         raise InvalidInputError(f"--field must be positive, got {field_t:g}")
-    tissue = tissue_option(gm, wm, csf)
+    tissue: Any = tissue_option(gm, wm, csf)
+    map_files = map_files_from_options(gm_map, wm_map, csf_map, label_map, label_table, anatomy)
+    if map_files is not None and tissue is not None:
+        raise click.UsageError("give tissue fractions (--gm/--wm/--csf) or maps, not both")
     overrides: dict[str, Any] = {}
     for key, value, option in (("te_s", te_ms, "--te-ms"), ("tr_s", tr_ms, "--tr-ms"),
                                ("tm_s", tm_ms, "--tm-ms")):
@@ -128,6 +138,10 @@ def fit_command(scan_file: Path, water_file: Path | None, gm: float | None, wm: 
     config, _ = resolve_config(config_file)
     scan = apply_overrides(load(scan_file), overrides)
     water = load(water_file) if water_file is not None else None
+    if map_files is not None:
+        from specproc.tissue import tissue_fractions_from_files
+
+        tissue = tissue_fractions_from_files(scan_file, map_files)
     basis = protocol = None
     if basis_choice and basis_choice != "auto":
         basis = Path(basis_choice)

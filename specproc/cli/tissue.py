@@ -19,19 +19,27 @@ import click
 
 from specproc.errors import InvalidInputError
 
-__all__ = ["COMMANDS", "format_fractions", "map_file_options", "tissue_command"]
+__all__ = ["COMMANDS", "format_fractions", "map_file_options", "map_files_from_options",
+           "tissue_command"]
 
 _FILE = click.Path(dir_okay=False, path_type=Path)
 
 
-def map_file_options(function: Any) -> Any:
-    """The segmentation options shared by ``specproc tissue`` and ``specproc fit``."""
+def map_file_options(function: Any, *, short: bool = True) -> Any:
+    """The segmentation options shared by ``specproc tissue`` and ``specproc fit``.
+
+    ``--gm-map``, ``--wm-map``, ``--csf-map`` (the names of the manifest columns), also spelt
+    ``--gm``, ``--wm``, ``--csf`` when ``short`` (``specproc fit`` keeps those for numbers).
+    """
+    def names(tissue: str) -> tuple[str, ...]:
+        return (f"--{tissue}", f"--{tissue}-map") if short else (f"--{tissue}-map",)
+
     options = [
-        click.option("--gm", "gm_map", metavar="GM", type=_FILE,
+        click.option(*names("gm"), "gm_map", metavar="GM", type=_FILE,
                      help="Grey-matter probability map (NIfTI, 0-1) on the anatomy's grid."),
-        click.option("--wm", "wm_map", metavar="WM", type=_FILE,
+        click.option(*names("wm"), "wm_map", metavar="WM", type=_FILE,
                      help="White-matter probability map."),
-        click.option("--csf", "csf_map", metavar="CSF", type=_FILE,
+        click.option(*names("csf"), "csf_map", metavar="CSF", type=_FILE,
                      help="CSF probability map."),
         click.option("--labels", "label_map", metavar="SEG", type=_FILE,
                      help="One label image instead of the three maps."),
@@ -100,22 +108,20 @@ def tissue_command(scan_file: Path, gm_map: Path | None, wm_map: Path | None,
 
     files = map_files_from_options(gm_map, wm_map, csf_map, label_map, label_table, anatomy)
     if files is None:
-        raise click.UsageError("give --gm, --wm and --csf, or --labels")
+        raise click.UsageError("give --gm, --wm and --csf (maps), or --labels")
     if png_file is not None and anatomy is None:
         raise click.UsageError("--png needs --anatomy")
     if not 0 <= max_unsegmented < 1:
         raise click.UsageError("--max-unsegmented must be in [0, 1)")
     result = tissue_fractions_from_files(scan_file, files, oversample=oversample,
-                                         max_unsegmented=max_unsegmented)
-    png = None
+                                         max_unsegmented=max_unsegmented,
+                                         picture=png_file is not None)
     if png_file is not None:
+        from specproc._atomic import write_bytes
         from specproc.report.voxel import voxel_picture_png
 
-        png = voxel_picture_png(result, files, title=scan_file.name)
-    if png is not None and png_file is not None:
-        from specproc._atomic import write_bytes
-
-        write_bytes(png_file, png)
+        write_bytes(png_file, voxel_picture_png(result.planes, fractions=result.as_mapping(),
+                                                title=scan_file.name))
     if as_json:
         document = {"scan": str(scan_file), **result.to_dict(), "files": files.describe(),
                     "picture": None if png_file is None else str(png_file)}

@@ -39,6 +39,7 @@ from specproc.report.tables import (
     qc_rows,
     sig,
 )
+from specproc.report.voxel import with_tissue_methods
 
 __all__ = ["CAUTION_TEXT", "environment", "escape", "methods_doc_uri", "render_page",
            "render_report", "write_report"]
@@ -208,6 +209,7 @@ def render_report(
     basis_info: Mapping[str, Any],
     water_info: Mapping[str, Any] | None = None,
     tissue: Mapping[str, float] | None = None,
+    tissue_info: Mapping[str, Any] | None = None,
     notes: Sequence[str] = (),
     links: Mapping[str, str] | None = None,
     cfg_source: str = "",
@@ -239,6 +241,9 @@ def render_report(
         How the water signal was measured.
     tissue : mapping, optional
         Tissue fractions used.
+    tissue_info : mapping, optional
+        How they were obtained and where the voxel was (rows added to the methods table by
+        :func:`specproc.report.voxel.with_tissue_methods`).
     notes : sequence of str
         Notes of the run (sentences; shown with the warnings).
     links : mapping, optional
@@ -314,9 +319,10 @@ def render_report(
         qc_rows=qc_rows(qc),
         qc_notes=list(qc.notes),
         noise_statement=_noise_statement(fit, qc),
-        methods=methods_rows(scan=scan, water=water, pre=pre, fit=fit, quant=quant, qc=qc,
-                             basis_info=basis_info, versions=versions, water_info=water_info,
-                             tissue=tissue),
+        methods=with_tissue_methods(
+            methods_rows(scan=scan, water=water, pre=pre, fit=fit, quant=quant, qc=qc,
+                         basis_info=basis_info, versions=versions, water_info=water_info,
+                         tissue=tissue), tissue_info),
         processing=processing_rows(pre.scan.provenance),
         water_steps=water_steps,
         formula=formula,

@@ -8,15 +8,18 @@ and the GM, WM and CSF maps can be laid over the anatomy as translucent colours.
 labelled with the anatomical directions (R/L, A/P, S/I; right on the right of coronal and
 axial panels, anterior on the right of the sagittal panel).
 
-Pure functions: :func:`sample_plane` and :func:`plane_outline_mm` compute, :func:`plot_voxel`
-draws a matplotlib figure (Agg, no display), :func:`voxel_picture_png` reads the files and
-returns PNG bytes. :func:`tissue_methods_rows` gives the rows of the report's methods table on
-the voxel and its tissue fractions, :func:`with_tissue_methods` places them in a table.
+Pure functions: :func:`sample_plane`, :func:`plane_outline_mm` and :func:`voxel_planes`
+compute what is shown (:class:`VoxelPlanes`, small arrays kept with the tissue fractions),
+:func:`plot_voxel_planes` draws it as a matplotlib figure (Agg, no display) and
+:func:`voxel_picture_png` renders it to PNG bytes. :func:`tissue_methods_rows` gives the rows
+of the report's methods table on the voxel and its tissue fractions, and
+:func:`with_tissue_methods` places them in a table.
 """
 
 from __future__ import annotations
 
 from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -27,11 +30,15 @@ from specproc.report.figures import plain_text
 __all__ = [
     "PLANES",
     "TISSUE_COLOURS",
+    "VOXEL_CAPTION",
+    "VoxelPlanes",
     "plane_outline_mm",
     "plot_voxel",
+    "plot_voxel_planes",
     "sample_plane",
     "tissue_methods_rows",
     "voxel_picture_png",
+    "voxel_planes",
     "with_tissue_methods",
 ]
 
@@ -47,6 +54,10 @@ TISSUE_COLOURS: Mapping[str, tuple[float, float, float]] = {
 }
 _AXIS_LETTERS = (("L", "R"), ("P", "A"), ("I", "S"))
 _OUTLINE_COLOUR = "#ffe14d"
+_OVERLAY_ALPHA = 0.3
+#: Caption of the picture in the report.
+VOXEL_CAPTION = ("Voxel on the anatomy: sagittal, coronal and axial planes through its centre, "
+                 "outline of the voxel cut by each plane, GM/WM/CSF maps laid over the image")
 _MAX_PIXELS = 360
 
 
@@ -135,10 +146,37 @@ def plane_outline_mm(voxel: Any, plane: int) -> np.ndarray:
     return cut[np.argsort(angle)]
 
 
-def plot_voxel(anatomy: np.ndarray, affine: np.ndarray, voxel: Any, *,
-               maps: Mapping[str, np.ndarray] | None = None,
-               fractions: Mapping[str, float] | None = None, title: str | None = None) -> Any:
-    """Figure: the voxel outline on three orthogonal planes through its centre.
+@dataclass(frozen=True, eq=False)
+class VoxelPlanes:
+    """What the voxel picture shows: three planes sampled from the anatomy (and maps).
+
+    Attributes
+    ----------
+    voxel : VoxelGeometry
+        The voxel.
+    images : tuple of 3 (n_v, n_h) ndarray
+        Anatomy on the sagittal, coronal and axial planes (:data:`PLANES`).
+    extents : tuple of 3 tuples of 4 float
+        ``(h_min, h_max, v_min, v_max)`` of each plane, mm.
+    overlays : tuple of 3 mappings, or None
+        Tissue maps (``gm``, ``wm``, ``csf``) on the same planes.
+    outlines : tuple of 3 (n, 2) ndarray
+        The voxel's cut through each plane (:func:`plane_outline_mm`).
+    display_max : float
+        Grey level shown white (99.5th percentile of the anatomy).
+    """
+
+    voxel: Any
+    images: tuple[np.ndarray, ...]
+    extents: tuple[tuple[float, float, float, float], ...]
+    overlays: tuple[Mapping[str, np.ndarray], ...] | None
+    outlines: tuple[np.ndarray, ...]
+    display_max: float
+
+
+def voxel_planes(anatomy: np.ndarray, affine: np.ndarray, voxel: Any, *,
+                 maps: Mapping[str, np.ndarray] | None = None) -> VoxelPlanes:
+    """Sample the three planes through the voxel centre from the anatomy (and the maps).
 
     Parameters
     ----------
@@ -149,7 +187,39 @@ def plot_voxel(anatomy: np.ndarray, affine: np.ndarray, voxel: Any, *,
     voxel : VoxelGeometry
         The spectroscopy voxel.
     maps : mapping of str to ndarray, optional
-        GM, WM, CSF maps (0-1) drawn over the anatomy.
+        GM, WM, CSF maps (0-1) to lay over the anatomy.
+    """
+    low, high = _extent_mm(affine, anatomy.shape)
+    pixel = max(float(np.min(np.linalg.norm(affine[:3, :3], axis=0))),
+                float(np.max(high - low)) / _MAX_PIXELS)
+    centre = voxel.centre_mm
+    finite = anatomy[np.isfinite(anatomy)]
+    top = float(np.percentile(finite, 99.5)) if finite.size else 1.0
+    images, extents, overlays, outlines = [], [], [], []
+    for k in range(len(PLANES)):
+        image, extent = sample_plane(anatomy, affine, centre, k, pixel_mm=pixel,
+                                     low_mm=low, high_mm=high)
+        images.append(image.astype(np.float32))
+        extents.append(extent)
+        outlines.append(plane_outline_mm(voxel, k))
+        if maps:
+            overlays.append({t: np.clip(sample_plane(maps[t], affine, centre, k,
+                                                     pixel_mm=pixel, low_mm=low,
+                                                     high_mm=high)[0], 0.0, 1.0
+                                        ).astype(np.float32)
+                             for t in TISSUE_COLOURS if t in maps})
+    return VoxelPlanes(voxel=voxel, images=tuple(images), extents=tuple(extents),
+                       overlays=tuple(overlays) if maps else None, outlines=tuple(outlines),
+                       display_max=top if top > 0 else 1.0)
+
+
+def plot_voxel_planes(planes: VoxelPlanes, *, fractions: Mapping[str, float] | None = None,
+                      title: str | None = None) -> Any:
+    """Figure: the voxel outline on the three planes of :func:`voxel_planes`.
+
+    Parameters
+    ----------
+    planes : VoxelPlanes
     fractions : mapping of str to float, optional
         Shown in the legend.
     title : str, optional
@@ -162,45 +232,33 @@ def plot_voxel(anatomy: np.ndarray, affine: np.ndarray, voxel: Any, *,
     from matplotlib.figure import Figure
     from matplotlib.patches import Patch, Polygon
 
-    low, high = _extent_mm(affine, anatomy.shape)
-    pixel = max(float(np.min(np.linalg.norm(affine[:3, :3], axis=0))),
-                float(np.max(high - low)) / _MAX_PIXELS)
-    centre = voxel.centre_mm
-    finite = anatomy[np.isfinite(anatomy)]
-    top = float(np.percentile(finite, 99.5)) if finite.size else 1.0
+    centre = planes.voxel.centre_mm
     fig = Figure(figsize=(10.5, 4.0))
     FigureCanvasAgg(fig)
     fig.subplots_adjust(left=0.02, right=0.98, top=0.84, bottom=0.12, wspace=0.06)
     for k, (name, fixed, (h, v)) in enumerate(PLANES):
         ax = fig.add_subplot(1, 3, k + 1)
-        image, extent = sample_plane(anatomy, affine, centre, k, pixel_mm=pixel,
-                                     low_mm=low, high_mm=high)
-        ax.imshow(image, origin="lower", extent=extent, cmap="gray", vmin=0.0,
-                  vmax=top if top > 0 else 1.0, interpolation="nearest")
-        if maps:
-            rgba = np.zeros((*image.shape, 4))
-            for t, colour in TISSUE_COLOURS.items():
-                if t not in maps:
-                    continue
-                layer, _ = sample_plane(maps[t], affine, centre, k, pixel_mm=pixel,
-                                        low_mm=low, high_mm=high)
-                layer = np.clip(layer, 0.0, 1.0)
-                rgba[..., :3] += layer[..., None] * np.asarray(colour)
-                rgba[..., 3] += 0.3 * layer
-            rgba[..., 3] = np.clip(rgba[..., 3], 0.0, 0.3)
+        extent = planes.extents[k]
+        ax.imshow(planes.images[k], origin="lower", extent=extent, cmap="gray", vmin=0.0,
+                  vmax=planes.display_max, interpolation="nearest")
+        if planes.overlays is not None:
+            layers = planes.overlays[k]
+            rgba = np.zeros((*planes.images[k].shape, 4))
+            for t, layer in layers.items():
+                rgba[..., :3] += layer[..., None] * np.asarray(TISSUE_COLOURS[t])
+                rgba[..., 3] += _OVERLAY_ALPHA * layer
+            rgba[..., 3] = np.clip(rgba[..., 3], 0.0, _OVERLAY_ALPHA)
             ax.imshow(np.clip(rgba, 0.0, 1.0), origin="lower", extent=extent,
                       interpolation="nearest")
-        outline = plane_outline_mm(voxel, k)
-        ax.add_patch(Polygon(outline, closed=True, fill=False, edgecolor=_OUTLINE_COLOUR,
-                             linewidth=1.6))
+        ax.add_patch(Polygon(planes.outlines[k], closed=True, fill=False,
+                             edgecolor=_OUTLINE_COLOUR, linewidth=1.6))
         ax.plot([centre[h]], [centre[v]], "+", color=_OUTLINE_COLOUR, ms=7, mew=1.2)
         ax.set_xlim(extent[0], extent[1])
         ax.set_ylim(extent[2], extent[3])
         ax.set_aspect("equal")
         ax.set_xticks([])
         ax.set_yticks([])
-        axis_name = "xyz"[fixed]
-        ax.set_title(f"{name}, {axis_name} = {centre[fixed]:.1f} mm", fontsize=9)
+        ax.set_title(f"{name}, {'xyz'[fixed]} = {centre[fixed]:.1f} mm", fontsize=9)
         for (text, x, y, ha, va) in (
             (_AXIS_LETTERS[h][0], 0.02, 0.5, "left", "center"),
             (_AXIS_LETTERS[h][1], 0.98, 0.5, "right", "center"),
@@ -209,46 +267,37 @@ def plot_voxel(anatomy: np.ndarray, affine: np.ndarray, voxel: Any, *,
         ):
             ax.text(x, y, text, transform=ax.transAxes, ha=ha, va=va, color="white",
                     fontsize=9, fontweight="bold")
-    if maps:
-        handles = []
+    handles = []
+    if planes.overlays is not None:
         for t, colour in TISSUE_COLOURS.items():
             label = t.upper()
             if fractions is not None and t in fractions:
                 label += f" {fractions[t]:.2f}"
             handles.append(Patch(facecolor=colour, alpha=0.6, label=label))
-        handles.append(Patch(facecolor="none", edgecolor=_OUTLINE_COLOUR, label="voxel"))
-        fig.legend(handles=handles, loc="lower center", ncol=len(handles), fontsize=8,
-                   frameon=False)
-    sides = " x ".join(f"{s:.1f}" for s in voxel.size_mm)
+    handles.append(Patch(facecolor="none", edgecolor=_OUTLINE_COLOUR, label="voxel"))
+    fig.legend(handles=handles, loc="lower center", ncol=len(handles), fontsize=8,
+               frameon=False)
+    sides = " x ".join(f"{s:.1f}" for s in planes.voxel.size_mm)
     heading = f"voxel {sides} mm at ({', '.join(f'{c:.1f}' for c in centre)}) mm"
     fig.suptitle(plain_text(f"{title}: {heading}" if title else heading), fontsize=10)
     return fig
 
 
-def voxel_picture_png(result: Any, files: Any, *, title: str | None = None,
-                      overlay: bool = True) -> bytes:
-    """PNG of :func:`plot_voxel` for a :class:`~specproc.tissue.TissueFractions`.
+def plot_voxel(anatomy: np.ndarray, affine: np.ndarray, voxel: Any, *,
+               maps: Mapping[str, np.ndarray] | None = None,
+               fractions: Mapping[str, float] | None = None, title: str | None = None) -> Any:
+    """:func:`plot_voxel_planes` of :func:`voxel_planes` (arguments as there)."""
+    return plot_voxel_planes(voxel_planes(anatomy, affine, voxel, maps=maps),
+                             fractions=fractions, title=title)
 
-    Parameters
-    ----------
-    result : TissueFractions
-        Fractions and voxel (from :func:`specproc.tissue.tissue_fractions_from_files`).
-    files : TissueMapFiles
-        Its files; ``files.anatomy`` is required.
-    overlay : bool, default True
-        Draw the segmentation over the anatomy.
-    """
-    from specproc.errors import InvalidInputError
+
+def voxel_picture_png(planes: VoxelPlanes, *, fractions: Mapping[str, float] | None = None,
+                      title: str | None = None) -> bytes:
+    """PNG bytes of :func:`plot_voxel_planes` (``$`` in the title is shown as it is)."""
     from specproc.report.figures import figure_png_bytes
-    from specproc.tissue.fractions import load_anatomy, load_tissue_maps
 
-    if files.anatomy is None:
-        raise InvalidInputError("the voxel picture needs the anatomical image")
-    anatomy, affine = load_anatomy(files.anatomy)
-    maps = load_tissue_maps(files).maps if overlay else None
-    fig = plot_voxel(anatomy, affine, result.voxel, maps=maps,
-                     fractions=result.as_mapping(), title=title)
-    return figure_png_bytes(fig, dpi=100)
+    safe = None if title is None else title.replace("$", r"\$")  # no mathtext
+    return figure_png_bytes(plot_voxel_planes(planes, fractions=fractions, title=safe), dpi=100)
 
 
 def tissue_methods_rows(tissue_info: Mapping[str, Any] | None) -> list[dict[str, str]]:

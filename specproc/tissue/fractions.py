@@ -141,6 +141,9 @@ class TissueFractions:
         Label values (label images only).
     anatomy_zooms_mm : tuple of 3 float
         Voxel sides of the maps' grid, mm.
+    planes : VoxelPlanes or None
+        The anatomy and maps on three planes through the voxel, for the picture
+        (:mod:`specproc.report.voxel`); ``None`` without an anatomical image.
     """
 
     fractions: Mapping[str, float]
@@ -152,6 +155,7 @@ class TissueFractions:
     sources: Mapping[str, str] = field(default_factory=dict)
     label_table: Mapping[str, tuple[int, ...]] | None = None
     anatomy_zooms_mm: tuple[float, float, float] = (1.0, 1.0, 1.0)
+    planes: Any = None
 
     def as_mapping(self) -> dict[str, float]:
         """``{"gm": .., "wm": .., "csf": ..}``, normalised (for :func:`specproc.quantify`)."""
@@ -595,19 +599,44 @@ class TissueMapFiles:
 
 
 def tissue_fractions_from_files(scan: str | os.PathLike[str], files: TissueMapFiles, *,
-                                oversample: float = 4.0, max_unsegmented: float = 0.1
-                                ) -> TissueFractions:
+                                oversample: float = 4.0, max_unsegmented: float = 0.1,
+                                picture: bool | None = None) -> TissueFractions:
     """Voxel geometry of ``scan`` + the segmentation of ``files`` -> tissue fractions.
 
     Reads the voxel from the spectroscopy file (:func:`read_voxel_geometry`), the maps around
     it, checks everything and integrates (:func:`voxel_tissue_fractions`).
+
+    Parameters
+    ----------
+    scan : str or path-like
+        NIfTI-MRS or DICOM MRS file.
+    files : TissueMapFiles
+        The segmentation (and anatomy).
+    oversample, max_unsegmented
+        As in :func:`voxel_tissue_fractions`.
+    picture : bool, optional
+        Also sample the planes of the voxel picture (``planes``); default: when ``files``
+        has an anatomical image. ``True`` without one is an error.
     """
+    import dataclasses
+
     from specproc.tissue.geometry import read_voxel_geometry
 
     voxel = read_voxel_geometry(scan)
     maps = load_tissue_maps(files, voxel=voxel)
-    return voxel_tissue_fractions(voxel, maps, oversample=oversample,
-                                  max_unsegmented=max_unsegmented)
+    result = voxel_tissue_fractions(voxel, maps, oversample=oversample,
+                                    max_unsegmented=max_unsegmented)
+    if picture is None:
+        picture = files.anatomy is not None
+    if not picture:
+        return result
+    if files.anatomy is None:
+        raise InvalidInputError("the voxel picture needs the anatomical image")
+    from specproc.report.voxel import voxel_planes
+
+    anatomy, affine = load_anatomy(files.anatomy)
+    planes = voxel_planes(anatomy, affine, voxel, maps=load_tissue_maps(files).maps)
+    return dataclasses.replace(result, planes=planes)
 
 
 def load_tissue_maps(files: TissueMapFiles, *, voxel: VoxelGeometry | None = None
