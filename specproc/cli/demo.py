@@ -66,6 +66,23 @@ def summary_row(key: str, summary: Mapping[str, Any],
     }
 
 
+def _tissue_text(folder: Path) -> str:
+    """How a scan's tissue fractions were obtained, from its fit.json."""
+    from specproc.batch.task import read_json
+
+    tissue = (read_json(folder / "fit.json") or {}).get("tissue")
+    if not tissue:
+        return "none (ratios only)"
+    values = "/".join(f"{float(tissue['fractions'][t]):.3f}" for t in ("gm", "wm", "csf"))
+    if tissue.get("method") == "given":
+        return f"{values} given in the manifest"
+    picture = " (voxel.png beside the report)" if (folder / "voxel.png").is_file() else ""
+    from specproc.tissue.fractions import share_text
+
+    return (f"{values} from the anatomy, unsegmented {share_text(tissue['unsegmented'])}"
+            f"{picture}")
+
+
 def _format_table(rows: list[dict[str, str]]) -> str:
     keys = [k for k, _ in SUMMARY_COLUMNS]
     labels = dict(SUMMARY_COLUMNS)
@@ -120,6 +137,9 @@ def demo(out_dir: Path, config_file: Path | None, workers: int | None) -> None:
     click.echo("")
     click.echo("tNAA mM: water-referenced (mmol per litre of GM+WM tissue); '-' where the manifest "
                "gives no tissue fractions. Ratios are not relaxation-corrected.")
+    click.echo("Tissue fractions GM/WM/CSF of the voxel:")
+    for entry in entries:
+        click.echo(f"  {entry.key}: {_tissue_text(scan_folder(summary.out_dir, entry.key))}")
     click.echo("Reports:")
     for entry in entries:
         report = scan_folder(summary.out_dir, entry.key) / "report.html"

@@ -72,6 +72,8 @@ def map_files_from_options(gm_map: Path | None, wm_map: Path | None, csf_map: Pa
 
 def format_fractions(result: Any) -> str:
     """Text shown by ``specproc tissue`` for a :class:`~specproc.tissue.TissueFractions`."""
+    from specproc.tissue.fractions import share_text
+
     voxel = result.voxel
     centre = ", ".join(f"{v:.1f}" for v in voxel.centre_mm)
     sides = " x ".join(f"{v:.1f}" for v in voxel.size_mm)
@@ -83,7 +85,7 @@ def format_fractions(result: Any) -> str:
     ]
     for t in ("gm", "wm", "csf"):
         lines.append(f"{t.upper():<12}{result.fractions[t]:>10.3f}{result.raw[t]:>10.3f}")
-    lines.append(f"{'unsegmented':<12}{'':>10}{result.unsegmented:>10.3f}")
+    lines.append(f"{'unsegmented':<12}{'':>10}{share_text(result.unsegmented):>10}")
     lines.append(f"method: {result.method()}")
     return "\n".join(lines)
 

@@ -339,8 +339,10 @@ def tissue_methods_rows(tissue_info: Mapping[str, Any] | None) -> list[dict[str,
         rows.append({"section": "3 Analysis", "item": "segmentation",
                      "value": ", ".join(names)})
     if "unsegmented" in tissue_info:
+        from specproc.tissue.fractions import share_text
+
         rows.append({"section": "3 Analysis", "item": "unsegmented share of the voxel",
-                     "value": f"{float(tissue_info['unsegmented']):.3f} (not in the GM, WM or "
+                     "value": f"{share_text(tissue_info['unsegmented'])} (not in the GM, WM or "
                               "CSF map; the fractions are normalised to their sum)"})
     return rows
 

@@ -63,6 +63,7 @@ __all__ = [
     "load_probability_maps",
     "load_tissue_maps",
     "parse_label_table",
+    "share_text",
     "tissue_fractions_from_files",
     "voxel_sample_points",
     "voxel_tissue_fractions",
@@ -170,7 +171,7 @@ class TissueFractions:
         return (f"mean of {what} ({zooms} mm grid) over the voxel ({self.voxel.method}), "
                 f"supersampled at {n[0]} x {n[1]} x {n[2]} points in the voxel's frame with "
                 "trilinear interpolation; normalised to GM + WM + CSF = 1 "
-                f"(unsegmented remainder {self.unsegmented:.3f})")
+                f"(unsegmented remainder {share_text(self.unsegmented)})")
 
     def to_dict(self) -> dict[str, Any]:
         """Plain dict for JSON outputs."""
@@ -187,6 +188,11 @@ class TissueFractions:
             "anatomy_zooms_mm": list(self.anatomy_zooms_mm),
             "voxel": self.voxel.to_dict(),
         }
+
+
+def share_text(value: float) -> str:
+    """A share of the voxel with three decimals, without a sign for what rounds to zero."""
+    return f"{round(float(value), 3) + 0.0:.3f}"
 
 
 def _table_text(table: Mapping[str, tuple[int, ...]] | None) -> str:
