@@ -167,6 +167,16 @@ def results_rows(fit: Any, quant: Any, qc: Any, *, scan_label: str) -> list[dict
     return out
 
 
+def _noise_definition(qc: Any) -> str:
+    """How the noise SD was measured: the regions actually used (from the QC settings)."""
+    regions = qc.settings.get("noise_region_ppm") if isinstance(qc.settings, Mapping) else None
+    if not regions:
+        return "SD (ddof=1) of the real spectrum in a signal-free region"
+    items = regions if isinstance(regions[0], list | tuple) else [regions]
+    where = ", ".join(f"{sig(lo)} to {sig(hi)} ppm" for lo, hi in items)
+    return f"SD (ddof=1) of the real spectrum in the signal-free region(s) {where}"
+
+
 def qc_rows(qc: Any) -> list[dict[str, str]]:
     """QC measures with their limits, a status sentence and the definition of each."""
     from specproc.qc import QC_DEFINITIONS, QCThresholds
@@ -203,7 +213,7 @@ def qc_rows(qc: Any) -> list[dict[str, str]]:
 
     rows = [
         row("SNR (NAA)", qc.snr, "", "snr", QC_DEFINITIONS["snr"], limit("at least", "snr_min")),
-        row("noise SD", qc.noise_sd, "a.u.", "noise_sd", QC_DEFINITIONS["noise_sd"]),
+        row("noise SD", qc.noise_sd, "a.u.", "noise_sd", _noise_definition(qc)),
         row("NAA FWHM", qc.naa_fwhm_hz, "Hz", "naa_fwhm_hz", QC_DEFINITIONS["fwhm"]),
         row("NAA FWHM", qc.naa_fwhm_ppm, "ppm", "naa_fwhm_ppm", QC_DEFINITIONS["fwhm"],
             limit("at most", "naa_fwhm_ppm_max")),
@@ -222,6 +232,15 @@ def qc_rows(qc: Any) -> list[dict[str, str]]:
         rows.append(row(f"CRLB {name}", value, "%", f"crlb:{name}",
                         "Cramér-Rao SD / amplitude", limit("at most", "crlb_percent_max")))
     return rows
+
+
+def _timing_text(key: str, value: Any) -> str:
+    """``"TE1 15 ms"`` for a timing key ``te1_s``; delay lists as ``"delays 3.75, 7.5 ms"``."""
+    label = key.removesuffix("_s")
+    label = label.upper() if label.lower() in ("te", "te1", "te2", "tm", "tr") else label
+    if isinstance(value, list | tuple):
+        return f"{label} " + ", ".join(f"{float(v) * 1e3:g}" for v in value) + " ms"
+    return f"{label} {float(value) * 1e3:g} ms"
 
 
 def _ms(value: float | None) -> str:
@@ -291,7 +310,7 @@ def methods_rows(
     steps = [r.get("Method", "") for r in pre.scan.provenance]
     add(ana, "processing steps", "; ".join(s for s in steps if s))
     add(ana, "basis", f"{basis_info.get('origin', '')}; {basis_info.get('sequence', '')} "
-        f"{', '.join(f'{k} {v * 1e3:g} ms' for k, v in basis_info.get('timings_s', {}).items())}"
+        f"{', '.join(_timing_text(k, v) for k, v in basis_info.get('timings_s', {}).items())}"
         f"; {len(basis_info.get('names', []))} members")
     if basis_info.get("timing"):
         add(ana, "basis sub-timing (source)", basis_info["timing"])
@@ -342,6 +361,8 @@ def _detail_text(key: str, value: Any) -> str | None:
     if isinstance(value, Mapping):
         return None  # nested records are in fit.json
     if isinstance(value, list | tuple):
+        if not value:
+            return f"{label}: none"
         if len(value) == 2 and all(isinstance(v, int | float) and not isinstance(v, bool)
                                    for v in value):
             return f"{label} {sig(value[0])} to {sig(value[1])} {unit}".rstrip()
@@ -351,6 +372,10 @@ def _detail_text(key: str, value: Any) -> str | None:
                                                                              else "")
     if isinstance(value, bool):
         return f"{label}: {'yes' if value else 'no'}"
+    if isinstance(value, int | np.integer) or (isinstance(value, float | np.floating)
+                                               and float(value).is_integer()
+                                               and abs(value) < 1e6 and not unit):
+        return f"{label} {int(value)} {unit}".rstrip()  # counts stay whole numbers
     if isinstance(value, int | float | np.floating | np.integer):
         return f"{label} {sig(value)} {unit}".rstrip()
     text = str(value)
