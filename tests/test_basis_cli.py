@@ -70,7 +70,11 @@ def test_export_writes_nifti_mrs_per_member(tmp_path):
         (ext,) = [e for e in img.header.extensions if e.get_code() == 44]
         content = ext.get_content()
         meta = json.loads(content.decode() if isinstance(content, bytes) else content)
-        assert meta["specproc_basis_member"] == name
+        # user-defined keys are objects with a Value and a Description (NIfTI-MRS standard)
+        member = meta["specproc_basis_member"]
+        assert member["Value"] == name and member["Description"]
+        assert meta["specproc_basis_kind"]["Value"] == b.kinds[i]
+        assert meta["specproc_basis_protons"]["Value"] == b.protons[i]
         assert meta["SpectrometerFrequency"][0] == pytest.approx(b.spectrometer_mhz)
         assert meta["ResonantNucleus"] == ["1H"]
 

@@ -207,10 +207,11 @@ def _safe_file_name(name: str) -> str:
 def export_nifti_mrs(result: BasisSet, folder: Path) -> list[Path]:
     """Write every member of a BasisSet to ``folder/<name>.nii.gz`` via :func:`specproc.io.save`.
 
-    The member name, kind and proton count go into the NIfTI-MRS header extension as
-    ``specproc_basis_member``, ``specproc_basis_kind``, ``specproc_basis_protons``.
+    The member name, kind and proton count go into the NIfTI-MRS header extension as the
+    user-defined keys ``specproc_basis_member``, ``specproc_basis_kind`` and
+    ``specproc_basis_protons`` (each ``{"Value", "Description"}``, as the standard requires).
     """
-    from specproc.data import Scan
+    from specproc.data import Scan, user_key
     from specproc.io import save
 
     folder.mkdir(parents=True, exist_ok=True)
@@ -221,11 +222,15 @@ def export_nifti_mrs(result: BasisSet, folder: Path) -> list[Path]:
     for i, name in enumerate(result.names):
         timings = result.timings_s
         header = {
-            "specproc_basis_member": name,
-            "specproc_basis_kind": result.kinds[i],
-            "specproc_basis_protons": result.protons[i],
-            "specproc_basis_timings_s": dict(timings),
-            "specproc_definitions_hash": result.definitions_hash,
+            "specproc_basis_member": user_key(name, "name of the basis member"),
+            "specproc_basis_kind": user_key(
+                result.kinds[i], "kind of the basis member (metabolite, macromolecule ...)"),
+            "specproc_basis_protons": user_key(
+                result.protons[i], "number of protons of the member (its amplitude normalisation)"),
+            "specproc_basis_timings_s": user_key(
+                dict(timings), "sequence timings the basis was simulated for, s"),
+            "specproc_definitions_hash": user_key(
+                result.definitions_hash, "hash of the metabolite definitions simulated"),
             "SequenceName": result.sequence,
         }
         scan = Scan(
