@@ -325,10 +325,11 @@ def provenance_rows(block: Mapping[str, Any]) -> list[dict[str, str]]:
 
     files = {"spin": "specproc/data/basis/*.toml", "relaxation": "specproc/data/relaxation.toml",
              "water": "specproc/constants.py"}
+    by_kind: Mapping[str, Mapping[str, int]] = block.get("by_kind") or {}
     rows = [
         {"quantity": _KIND_LABELS.get(kind, kind), "value": counts(by_status),
          "source": files.get(kind, "")}
-        for kind, by_status in dict(block.get("by_kind", {})).items()
+        for kind, by_status in by_kind.items()
     ]
     overridden = list(block.get("overridden", []))
     rows.append({"quantity": "overridden by the settings",

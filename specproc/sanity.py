@@ -69,7 +69,7 @@ def check_signal(scan: Any) -> None:
             where)
 
 
-def collapse_reason(names: Sequence[str], amplitudes: Sequence[float],
+def collapse_reason(names: Sequence[str], amplitudes: Sequence[float] | np.ndarray,
                     flags: Sequence[str]) -> str | None:
     """Why a fit is to be called failed although the optimiser converged, or ``None``.
 
@@ -77,7 +77,7 @@ def collapse_reason(names: Sequence[str], amplitudes: Sequence[float],
     ----------
     names : sequence of str
         Basis members, in the order of ``amplitudes``.
-    amplitudes : sequence of float
+    amplitudes : sequence of float or (n_members,) ndarray
         Fitted amplitudes.
     flags : sequence of str
         The fit's flags (``at_bound:shift_<group>_hz`` for a group shift at its limit).

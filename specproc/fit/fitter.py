@@ -148,6 +148,7 @@ def _fit(scan: Scan, basis: BasisSet, config: Any) -> FitResult:
     model = build_model(scan, fids, names, kinds, settings)
     data = np.fft.fft(np.asarray(scan.data, dtype=complex))[model.index]
 
+    noise_regions: list[tuple[float, float]]
     if settings.noise_sd > 0:
         noise_sd, noise_regions = settings.noise_sd, []
     else:
@@ -216,10 +217,10 @@ def _optimise(
     nfev += res1.nfev if res1 is not None else 0
     stage2 = ~lay.mask(list(fixed))
     theta, res2 = problem.refine(theta, stage2, max_nfev=settings.max_iterations, tight=True)
+    nfev += res2.nfev if res2 is not None else 0
     last = res2 if res2 is not None else res1
     if last is None:
         return theta, "all nonlinear parameters held", True, nfev
-    nfev += last.nfev if last is res2 else 0
     return theta, str(last.message), bool(last.status > 0), nfev
 
 
@@ -313,7 +314,10 @@ def _assemble(
                                  theta[i_free]])
     fixed_names = {f"dshift_{i}_hz": f"dshift_{names[i]}_hz" for i in range(m)}
     fixed_names.update({f"ddamping_{i}_per_s": f"ddamping_{names[i]}_per_s" for i in range(m)})
-    rename = lambda n: fixed_names.get(n, n)  # noqa: E731
+
+    def rename(name: str) -> str:
+        return fixed_names.get(name, name)
+
     par_names = tuple(rename(n) for n in par_names)
     collapsed = collapse_reason(names, c, flags)  # converged, but on no spectrum
     if collapsed is not None:

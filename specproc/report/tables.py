@@ -374,7 +374,7 @@ def _detail_text(key: str, value: Any) -> str | None:
         return f"{label}: {'yes' if value else 'no'}"
     if isinstance(value, int | np.integer) or (isinstance(value, float | np.floating)
                                                and float(value).is_integer()
-                                               and abs(value) < 1e6 and not unit):
+                                               and abs(float(value)) < 1e6 and not unit):
         return f"{label} {int(value)} {unit}".rstrip()  # counts stay whole numbers
     if isinstance(value, int | float | np.floating | np.integer):
         return f"{label} {sig(value)} {unit}".rstrip()
