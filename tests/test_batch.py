@@ -390,6 +390,23 @@ def test_second_batch_into_a_live_folder_is_refused(cohort: Path, tmp_path: Path
     assert not (target / "scans").exists()  # the refused batch wrote nothing
 
 
+def test_cohort_tables_quote_cells_with_quote_characters(cohort: Path, tmp_path: Path) -> None:
+    """Issue 17 item 8: a cell holding a quote character keeps the row's cell count."""
+    broken = cohort / "sub-07" / "mrs" / "sub-07_svs.nii.gz"  # fails fast: random bytes
+    manifest = tmp_path / "quotes.tsv"
+    manifest.write_text(f'scan\tsubject\tscan_id\n{broken}\tsay "hi"\tq1\n'
+                        f'{broken}\tx"y\tq2\n', "utf-8")
+    out = tmp_path / "out"
+    run_batch(read_manifest(manifest), out, config=load_config(cohort / "fast.toml"),
+              metabolites=list(MEMBERS))
+    for name in ("cohort.tsv", "cohort_qc.tsv"):
+        with open(out / name, encoding="utf-8", newline="") as handle:
+            table = list(csv.reader(handle, delimiter="\t"))
+        assert all(len(row) == len(table[0]) for row in table), name
+    subjects = [row[table[0].index("subject")] for row in table[1:]]  # cohort_qc: every scan
+    assert subjects == ['say "hi"', 'x"y']
+
+
 def test_demo_study_manifest_and_folder_agree() -> None:
     from specproc._paths import demo_dir
 
