@@ -88,7 +88,9 @@ def report_dir(tmp_path_factory: pytest.TempPathFactory) -> Path:
     root = tmp_path_factory.mktemp("report")
     scan = load(PHANTOM / "sub-phantom_ses-01_svs.nii.gz")
     water = load(PHANTOM / "sub-phantom_ses-01_mrsref.nii.gz")
-    header = dict(scan.header) | {"VoxelLocation": EVIL_LOCATION, "Comment": EVIL_NOTE}
+    header = dict(scan.header) | {
+        "specproc_voxel_region": {"Value": EVIL_LOCATION, "Description": "region"},
+        "Comment": EVIL_NOTE}
     save(scan.replace(protocol=EVIL_PROTOCOL, header=header), root / "evil_svs.nii.gz")
     save(water, root / "evil_mrsref.nii.gz")
     with pytest.MonkeyPatch.context() as mp:
