@@ -81,6 +81,7 @@ OUTPUT_FILES: Mapping[str, str] = {
     "figure_pdf": "fit.pdf",
     "preprocess_png": "preprocess.png",
     "voxel_png": "voxel.png",
+    "edited_png": "edited.png",
     "report": "report.html",
 }
 
@@ -95,7 +96,7 @@ OUTPUT_MODES: tuple[str, ...] = ("all", "tables")
 #: Roles written in each mode.
 _MODE_ROLES: Mapping[str, tuple[str, ...]] = {
     "all": ("results", "json", "config", "figure_png", "figure_pdf", "preprocess_png",
-            "voxel_png", "report"),
+            "voxel_png", "edited_png", "report"),
     "tables": ("results", "json", "config", "state"),
 }
 
@@ -237,6 +238,9 @@ class ScanResult:
         Notes of the run (what was not done and why).
     elapsed_s : float
         Wall time of the analysis, s.
+    edited : EditedResult or None
+        The edited part (GABA+, DIFF fit, edited QC) of a J-difference edited scan
+        (:mod:`specproc.edited`); this result is then the analysis of its OFF spectrum.
     """
 
     title: str
@@ -261,6 +265,7 @@ class ScanResult:
     elapsed_s: float = 0.0
     tissue_info: dict[str, Any] | None = None
     tissue_planes: Any = None
+    edited: Any = None
 
     # ------------------------------------------------------------------ summaries
     @property
@@ -291,7 +296,12 @@ class ScanResult:
         """Rows of ``results.tsv`` (:func:`specproc.report.tables.results_rows`)."""
         from specproc.report.tables import results_rows
 
-        return results_rows(self.fit, self.quantification, self.qc, scan_label=self.title)
+        rows = results_rows(self.fit, self.quantification, self.qc, scan_label=self.title)
+        if self.edited is not None and rows:
+            from specproc.report.edited import edited_rows
+
+            rows += edited_rows(self.edited, scan_label=self.title, base=rows[0])
+        return rows
 
     def summary(self) -> dict[str, Any]:
         """The main numbers as a plain dict (ratios, concentrations, QC, flags)."""
@@ -347,6 +357,7 @@ class ScanResult:
             "provenance": self.provenance(),
             "qc": self.qc.to_dict(),
             "notes": list(self.notes),
+            "edited": None if self.edited is None else self.edited.to_dict(),
         })
 
     def provenance(self) -> dict[str, Any]:
@@ -547,6 +558,15 @@ def analyse_scan(
     start = time.perf_counter()
     scan = _as_scan(scan, "scan")
     water = _as_scan(water, "water reference")
+    if "DIM_EDIT" in scan.dims:
+        from specproc.edited.workflow import analyse_edited_scan
+
+        # a BasisSet given for the scan's protocol is a plain PRESS basis: the edited analysis
+        # simulates (and caches) its own ON, OFF and DIFF bases
+        return analyse_edited_scan(scan, water, tissue=tissue, config=config, title=title,
+                                   protocol=protocol,
+                                   basis=basis if basis is not None and not isinstance(
+                                       basis, BasisSet | str | os.PathLike) else None)
     cfg, cfg_source = resolve_config(config)
     thresholds = QCThresholds.from_config(cfg.get("qc"))
     relaxation_overrides = cfg.get("relaxation") or None
@@ -735,6 +755,13 @@ def write_scan_outputs(result: ScanResult, outdir: str | os.PathLike[str], *,
         blobs["voxel_png"] = voxel_picture_png(result.tissue_planes, fractions=result.tissue,
                                                title=result.title)
         figures.append((VOXEL_CAPTION, blobs["voxel_png"]))
+    if result.edited is not None:
+        from specproc.report.edited import plot_edited
+
+        blobs["edited_png"] = figure_png_bytes(plot_edited(
+            result.edited, title=f"{result.title}: edited spectra and the DIFF fit"))
+        figures.append(("Edited spectra: OFF and aligned ON; DIFF with its fit (GABA+, Glx)",
+                        blobs["edited_png"]))
     texts["report"] = render_report(
         title=result.title, scan=result.scan, water=result.water, pre=result.preprocessing,
         fit=result.fit, quant=result.quantification, qc=result.qc, rows=rows,

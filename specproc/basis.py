@@ -54,6 +54,7 @@ import numpy as np
 from specproc._atomic import atomic_path
 from specproc.constants import field_from_larmor, larmor_mhz
 from specproc.errors import InvalidInputError
+from specproc.spins.editing import EditPulse, mega_press
 from specproc.spins.sequences import build_sequence, normalise_sequence_name
 from specproc.spins.simulate import (
     LineList,
@@ -516,6 +517,7 @@ def simulate_basis(
     centre_ppm: float = 4.65,
     cache: bool = True,
     progress: bool | ProgressCallback = False,
+    edit: EditPulse | None = None,
 ) -> BasisSet:
     """Simulate a basis set for one protocol (density-matrix engine of :mod:`specproc.spins`).
 
@@ -547,6 +549,9 @@ def simulate_basis(
         Read and write the simulation cache (:func:`cache_dir`).
     progress : bool or callable, optional
         True shows a progress bar on stderr; a callable is called as ``f(done, total, name)``.
+    edit : EditPulse, optional
+        Editing pulses of one condition of a MEGA-PRESS scan (``sequence`` must be PRESS): the
+        set is then simulated with them (:func:`specproc.spins.editing.mega_press`).
 
     Returns
     -------
@@ -571,6 +576,11 @@ def simulate_basis(
     if not np.isfinite(centre_ppm):
         raise InvalidInputError(f"the receiver centre must be finite, got {centre_ppm}")
     mhz = larmor_mhz(field_t)
+    if edit is not None:
+        if seq.name != "press":
+            raise InvalidInputError(f"editing pulses are simulated in PRESS only, not {seq.name}")
+        seq = mega_press(te_s=seq.timings_s["te_s"], te1_s=seq.timings_s["te1_s"], edit=edit,
+                         spectrometer_mhz=mhz, centre_ppm=centre_ppm)
 
     if isinstance(metabolites, str):
         metabolites = [m for m in metabolites.split(",") if m.strip()]
@@ -599,6 +609,8 @@ def simulate_basis(
         "n_points": n_points,
         "centre_ppm": centre_ppm,
     }
+    if edit is not None:
+        inputs["edit"] = edit.describe()
     key = _cache_key(inputs)
     cache_path = cache_dir() / f"{key}.npz"
     if cache and cache_path.is_file():

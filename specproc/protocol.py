@@ -278,6 +278,11 @@ def resolve_protocol(
 
     where = getattr(scan, "source", None)
     name = sequence or scan.sequence
+    if not name and "DIM_EDIT" in tuple(getattr(scan, "dims", ())):
+        # J-difference edited data: a header name such as "MEGA-PRESS" is no plain
+        # localisation name; the localisation is PRESS (specproc.edited) unless it says LASER
+        header_name = str((getattr(scan, "header", None) or {}).get("SequenceName") or "")
+        name = None if "laser" in header_name.lower() else "press"
     if not name:
         raise InvalidInputError(
             "the scan does not say which sequence acquired it; name it with --sequence or a "

@@ -169,6 +169,8 @@ def fit_command(scan_file: Path, water_file: Path | None, gm: float | None, wm: 
         click.echo("water-referenced concentrations (mM of GM+WM tissue): " + ", ".join(
             f"{k} {v:.2f}" for k, v in conc.items()))
     click.echo(result.quantification.statement)
+    if result.edited is not None:
+        click.echo(result.edited.summary_text())
     for path in files.values():
         click.echo(f"wrote {path}")
     click.echo("Research use only; not a medical device.")

@@ -227,8 +227,9 @@ def _skip(scan: Scan, method: str, note: str, notes: list[str]) -> Scan:
     return scan.with_step(method, {"skipped": True, "note": note})
 
 
-def _last_record(scan: Scan, method: str) -> dict[str, Any] | None:
-    for record in reversed(scan.provenance):
+def _last_record(scan: Scan, method: str, since: int = 0) -> dict[str, Any] | None:
+    """Details of the latest provenance record of ``method`` among records ``since`` on."""
+    for record in reversed(scan.provenance[since:]):
         details = record.get("Details", {})
         if record.get("Method") == method and isinstance(details, dict):
             return details
@@ -288,17 +289,18 @@ def _combine(scan: Scan, water: Scan | None, cfg: dict[str, Any],
     return scan, water
 
 
-def _transient_report(scan: Scan, n_transients: int) -> TransientReport:
+def _transient_report(scan: Scan, n_transients: int, since: int = 0) -> TransientReport:
+    # only the records of this run count (a scan preprocessed before carries older ones)
     shifts = np.full(n_transients, np.nan)
     phases = np.full(n_transients, np.nan)
     scores = np.full(n_transients, np.nan)
     kept = np.ones(n_transients, dtype=bool)
-    align = _last_record(scan, "frequency and phase drift correction")
+    align = _last_record(scan, "frequency and phase drift correction", since)
     if align and not align.get("skipped"):
         idx = align["transient_index"]
         shifts[idx] = align["shifts_hz"]
         phases[idx] = align["phases_deg"]
-    outliers = _last_record(scan, "outlier transient rejection")
+    outliers = _last_record(scan, "outlier transient rejection", since)
     if outliers and not outliers.get("skipped"):
         scores[outliers["transient_index"]] = outliers["scores"]
         kept[outliers["dropped"]] = False
@@ -340,6 +342,7 @@ def run_pipeline(
     if water is not None:
         _check_water(scan, water)
     scan = _arrange_axes(scan, "data")
+    first_record = len(scan.provenance)
     if water is not None:
         water = _arrange_axes(water, "water reference data")
 
@@ -369,7 +372,7 @@ def run_pipeline(
         record = _last_record(scan, "outlier transient rejection")
         if record and record.get("skipped"):
             notes.append(f"outlier transient rejection: {record['note']}")
-    report = _transient_report(scan, n_transients)
+    report = _transient_report(scan, n_transients, first_record)
     scan = average_transients_scan(scan)
     if water is not None:
         water = average_transients_scan(water)

@@ -1,0 +1,192 @@
+"""Edited (MEGA-PRESS) scans: conditions, files, preprocessing and the analysis end to end.
+
+Outside checks: the NIfTI-MRS layout of an edit dimension (``DIM_EDIT`` with ``EditCondition``
+in its dim header, the ``EditPulse`` key; Clarke et al. 2022, key layout from memory) read back
+by plain nibabel; singlets shared by ON and OFF cancel in the difference to the noise level
+after alignment (the principle of J-difference editing, Mescher et al. 1998); GABA+/tCr of an
+invented scan against the truth of an independent generator (``benchmarks/edited_scans.py``:
+its own line shapes, T2, macromolecules and drift).
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+from pathlib import Path
+
+import nibabel as nib
+import numpy as np
+import pytest
+from click.testing import CliRunner
+
+from specproc.cli import main
+from specproc.data import Scan
+from specproc.edited.conditions import edit_conditions
+from specproc.edited.preprocess import preprocess_edited
+from specproc.errors import InvalidInputError
+from specproc.io import load, save
+
+sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "benchmarks"))
+
+from edited_scans import make_edited_scan
+
+MHZ = 123.2
+DWELL = 1 / 2000
+
+
+def _edited(data: np.ndarray, *, labels=("ON", "OFF"), pulse=None) -> Scan:
+    header = {} if pulse is None else {"EditPulse": pulse}
+    dim_headers = {} if labels is None else {"DIM_EDIT": {"header": {"EditCondition":
+                                                                     list(labels)}}}
+    return Scan(data=data, dwell_s=DWELL, spectrometer_mhz=MHZ, dims=("DIM_EDIT", "DIM_DYN"),
+                te_s=0.068, tr_s=2.0, dim_headers=dim_headers, header=header, source="x.nii",
+                format="nifti-mrs")
+
+
+def test_conditions_from_edit_condition_and_pulses():
+    data = np.ones((2, 4, 256), complex)
+    cond = edit_conditions(_edited(data, labels=("OFF", "ON")))
+    assert (cond.on_index, cond.off_index) == (1, 0)
+    assert cond.on.shift_ppm == 1.9 and cond.off.shift_ppm == 7.5
+    assert any("assumed" in n for n in cond.notes)
+    pulse = {"ON": {"PulseOffset": 4.56, "PulseDuration": 0.02}, "OFF": {"PulseOffset": 5.5}}
+    cond = edit_conditions(_edited(data, pulse=pulse))
+    assert cond.on.shift_ppm == 4.56 and cond.off.shift_ppm == 5.5
+    assert cond.on.duration_s == 0.02
+    # freely named conditions with their pulses: ON is the one below water
+    pulse = {"A": {"PulseOffset": 7.5}, "B": {"PulseOffset": 1.9}}
+    cond = edit_conditions(_edited(data, labels=("A", "B"), pulse=pulse))
+    assert cond.on_index == 1
+
+
+@pytest.mark.parametrize("labels", [None, ("first", "second")])
+def test_edit_dimension_of_unknown_meaning_is_refused(labels):
+    with pytest.raises(InvalidInputError, match="unknown meaning"):
+        edit_conditions(_edited(np.ones((2, 4, 256), complex), labels=labels))
+
+
+def test_three_edit_conditions_are_refused():
+    scan = Scan(data=np.ones((3, 4, 256), complex), dwell_s=DWELL, spectrometer_mhz=MHZ,
+                dims=("DIM_EDIT", "DIM_DYN"))
+    with pytest.raises(InvalidInputError, match="3 sub-spectra"):
+        edit_conditions(scan)
+
+
+def test_edited_file_round_trip_keeps_the_edit_header(tmp_path):
+    scan = _edited(np.ones((2, 4, 256), np.complex64),
+                   pulse={"ON": {"PulseOffset": 1.9}, "OFF": {"PulseOffset": 7.5}})
+    path = tmp_path / "edited.nii.gz"
+    save(scan, path)
+    # plain nibabel sees the standard's layout: time, then the edit axis tagged DIM_EDIT
+    img = nib.load(path)
+    assert img.shape[3:] == (256, 2, 4)
+    meta = json.loads(img.header.extensions[0].get_content())
+    assert meta["dim_5"] == "DIM_EDIT" and meta["dim_5_header"]["EditCondition"] == ["ON", "OFF"]
+    back = load(path)
+    assert edit_conditions(back).on_index == 0
+    assert back.header["EditPulse"]["OFF"]["PulseOffset"] == 7.5
+
+
+def _singlet_scan(offset_hz: float, offset_deg: float) -> tuple[Scan, np.ndarray]:
+    """Singlets only (creatine, choline, NAA), interleaved ON/OFF with a common drift; ON may
+    carry a constant extra offset."""
+    rng = np.random.default_rng(7)
+    t = np.arange(2048) * DWELL
+    n = 32
+    singlets = sum(a * np.exp(-2j * np.pi * (ppm - 4.65) * MHZ * t) * np.exp(-np.pi * 5 * t)
+                   for ppm, a in ((3.03, 30.0), (3.21, 20.0), (3.92, 20.0), (2.01, 45.0)))
+    data = np.zeros((2, n, t.size), complex)
+    for k in range(n):
+        drift = 0.05 * k + rng.normal(0, 0.2)
+        phase = rng.normal(0, np.deg2rad(2))
+        for c, (df, dphi) in enumerate(((offset_hz, np.deg2rad(offset_deg)), (0.0, 0.0))):
+            data[c, k] = singlets * np.exp(1j * (phase + dphi)) * np.exp(
+                -2j * np.pi * (df + drift) * t)
+            data[c, k] += rng.normal(0, 1.0, t.size) + 1j * rng.normal(0, 1.0, t.size)
+    return _edited(data), data
+
+
+def _residue(spectra) -> tuple[float, float]:
+    """Largest |DIFF| over the singlets, and the noise SD of DIFF."""
+    ppm = spectra.diff.ppm()
+    diff = np.real(spectra.diff.spectrum())
+    off = np.real(spectra.off.spectrum())
+    noise = float(np.std(diff[(ppm > -2.5) & (ppm < -0.5)]))
+    worst = 0.0
+    for lo, hi in ((2.95, 3.11), (3.13, 3.29), (3.84, 4.0), (1.93, 2.09)):
+        band = (ppm > lo) & (ppm < hi)
+        assert np.max(off[band]) > 20 * noise  # the singlets are there to cancel
+        worst = max(worst, float(np.max(np.abs(diff[band]))))
+    return worst, noise
+
+
+def test_interleaved_singlets_cancel_in_the_difference():
+    # ON and OFF interleaved with a common drift: the shared corrections leave noise only
+    scan, _ = _singlet_scan(0.0, 0.0)
+    worst, noise = _residue(preprocess_edited(scan))
+    assert worst < 4 * noise
+
+
+def test_constant_on_off_offset_is_measured_and_optionally_removed():
+    scan, _ = _singlet_scan(1.7, 12.0)
+    kept = preprocess_edited(scan)
+    aligned = preprocess_edited(scan, config={"edited": {"align_subspectra": True}})
+    # measured on choline either way (FFT-axis sign), applied only when asked
+    for spectra in (kept, aligned):
+        assert abs(abs(spectra.on_to_off["shift_hz"]) - 1.7) < 0.2
+        assert abs(spectra.on_to_off["phase_deg"] - 12.0) < 2.0
+    assert kept.on_to_off["applied"] == 0.0 and aligned.on_to_off["applied"] == 1.0
+    before, noise = _residue(kept)
+    after, _ = _residue(aligned)
+    assert before > 40 * noise
+    assert after < before / 5
+
+
+@pytest.fixture(scope="module")
+def invented_scan(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("edited")
+    scan = make_edited_scan(21, n_pairs=48, snr=400.0)
+    save(scan.scan.replace(source=None), folder / "sub-e_svs.nii.gz")
+    save(scan.water.replace(source=None), folder / "sub-e_mrsref.nii.gz")
+    return scan, folder
+
+
+def test_motion_corrupted_pair_is_rejected_as_a_pair(invented_scan):
+    scan, _ = invented_scan
+    spectra = preprocess_edited(scan.scan, water=scan.water)
+    assert not spectra.pairs_kept[scan.motion_pair]
+    # the pair rule: the OFF transient of that pair is left out too
+    assert spectra.off_result.transient_report.kept.size == int(spectra.pairs_kept.sum())
+
+
+@pytest.mark.slow
+def test_specproc_fit_on_an_edited_scan_reports_gaba_plus(invented_scan, tmp_path):
+    scan, folder = invented_scan
+    out = tmp_path / "out"
+    result = CliRunner().invoke(main, [
+        "fit", str(folder / "sub-e_svs.nii.gz"), "--water", str(folder / "sub-e_mrsref.nii.gz"),
+        "--gm", "0.6", "--wm", "0.3", "--csf", "0.1", "-o", str(out)], catch_exceptions=False)
+    assert result.exit_code == 0, result.output
+    assert "GABA+" in result.output
+    for name in ("edited.png", "report.html", "fit.json", "results.tsv"):
+        assert (out / name).is_file(), name
+    document = json.loads((out / "fit.json").read_text())
+    values = document["edited"]["values"]
+    truth = scan.truth["GABA+/tCr"]
+    # independent generator: line shapes, T2, macromolecules and drift of its own; one scan at
+    # high SNR, so the tolerance is the model mismatch (benchmark: bench_edited.py)
+    assert abs(values["GABA+/tCr"] / truth - 1) < 0.15
+    rows = (out / "results.tsv").read_text().splitlines()
+    assert any("\tGABA+\tedited\t" in row for row in rows)
+    assert "GABA+" in (out / "report.html").read_text()
+
+
+def test_fit_refuses_an_edit_axis_of_unknown_meaning(tmp_path):
+    scan = _edited(np.ones((2, 4, 256), np.complex64), labels=None)
+    path = tmp_path / "unknown.nii.gz"
+    save(scan.replace(source=None, te_s=0.068, sequence="press"), path)
+    result = CliRunner().invoke(main, ["fit", str(path), "-o", str(tmp_path / "o")])
+    assert result.exit_code == 2
+    lines = [line for line in result.output.splitlines() if line.strip()]
+    assert len(lines) == 1 and "unknown meaning" in lines[0] and "unknown.nii.gz" in lines[0]
+    assert not (tmp_path / "o").exists()
