@@ -115,6 +115,13 @@ def test_batch_with_map_columns_gives_the_same_as_fit(study: Path):
     for key in ("fractions", "raw", "unsegmented", "method", "voxel"):
         assert batch["tissue"][key] == fit["tissue"][key], key
     assert (study / "batch" / "scans" / "maps" / "voxel.png").is_file()
+    import csv
+
+    with open(study / "batch" / "cohort_qc.tsv", encoding="utf-8", newline="") as handle:
+        rows = {r["scan_id"]: r for r in csv.DictReader(handle, delimiter="\t")}
+    assert rows["maps"]["tissue_source"] == "maps"
+    assert float(rows["maps"]["gm"]) == pytest.approx(fit["tissue"]["fractions"]["gm"], rel=1e-5)
+    assert rows["badgrid"]["tissue_source"] == "n/a" and rows["badgrid"]["status"] == "failed"
     assert ((study / "fit" / "results.tsv").read_text("utf-8").splitlines()[1:]
             == (study / "batch" / "scans" / "maps" / "results.tsv").read_text("utf-8")
             .splitlines()[1:])

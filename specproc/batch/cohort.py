@@ -6,7 +6,10 @@
 ``cohort_qc.tsv``
     One row per scan (failed ones included), sorted by scan identifier. Columns:
     :data:`QC_COLUMNS`. ``status`` is ``ok``, ``flagged`` (a QC flag was raised; ``flags``
-    lists them, ``;``-separated) or ``failed`` (``reason`` says why, in one line).
+    lists them, ``;``-separated) or ``failed`` (``reason`` says why, in one line). ``gm``,
+    ``wm``, ``csf`` are the voxel's tissue fractions used, ``tissue_source`` says where they
+    came from (``maps`` or ``labels``: computed from the anatomy, :mod:`specproc.tissue`, with
+    the share of the voxel in no map in ``unsegmented``; ``given``: manifest numbers).
 ``cohort.html``
     One self-contained page (:class:`specproc.report.cohort.CohortPage`): summary statistics
     with the exclusion rules of the ``[qc]`` settings, one point per scan, the mean fitted
@@ -43,8 +46,10 @@ COHORT_COLUMNS: tuple[str, ...] = (
 )
 #: Columns of ``cohort_qc.tsv``.
 QC_COLUMNS: tuple[str, ...] = (
-    *_ID_COLUMNS, "scan", "water", "status", *QC_FIELDS, "flags", "reason",
+    *_ID_COLUMNS, "scan", "water", "status", *QC_FIELDS, "gm", "wm", "csf", "unsegmented",
+    "tissue_source", "flags", "reason",
 )
+_TISSUE_FIELDS = ("gm", "wm", "csf", "unsegmented", "tissue_source")
 
 
 def _read_scan(folder: Path) -> dict[str, Any] | None:
@@ -136,8 +141,10 @@ def _write_scan(entry: ScanEntry, summary: Mapping[str, Any], main: TsvWriter,
     reason = _relative_reason(str(summary.get("reason") or ""), entry)
     if isinstance(summary, dict):
         summary["reason"] = reason  # the page shows the same relative text
+    tissue = dict(summary.get("tissue") or {})
     qc_file.write((*ids, entry.scan_label, entry.water_label, status,
-                   *(qc.get(k) for k in QC_FIELDS), ";".join(flags), reason))
+                   *(qc.get(k) for k in QC_FIELDS), *(tissue.get(k) for k in _TISSUE_FIELDS),
+                   ";".join(flags), reason))
     if status == "failed":
         counts["failed"] += 1
         counts["failures"].append((entry.key, reason))

@@ -233,7 +233,19 @@ def summarise_fit_json(document: Mapping[str, Any]) -> dict[str, Any]:
         "metabolites": _metabolite_rows(list(fit.get("table") or []), quant),
         "spectrum": {k: (document.get("spectrum") or {}).get(k) for k in ("ppm", "fit")}
         if isinstance(document.get("spectrum"), Mapping) else None,
+        "tissue": _tissue_summary(document.get("tissue")),
     }
+
+
+def _tissue_summary(tissue: Any) -> dict[str, Any] | None:
+    """GM, WM, CSF, unsegmented share and source of fit.json's ``tissue`` (None without)."""
+    if not isinstance(tissue, Mapping) or not isinstance(tissue.get("fractions"), Mapping):
+        return None
+    given = tissue.get("method") == "given"
+    return {**{t: _num(tissue["fractions"].get(t)) for t in ("gm", "wm", "csf")},
+            "unsegmented": None if given else _num(tissue.get("unsegmented")),
+            "tissue_source": "given" if given else str(tissue.get("maps_kind") or "maps")
+            .replace("probability", "maps")}
 
 
 def process_one(task: Mapping[str, Any]) -> dict[str, Any]:
