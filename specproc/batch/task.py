@@ -222,10 +222,12 @@ def summarise_fit_json(document: Mapping[str, Any]) -> dict[str, Any]:
     flags = [str(f.get("name")) for f in qc.get("flags") or [] if isinstance(f, Mapping)]
     if "not_converged" in (fit.get("flags") or []):
         flags.append("fit:not_converged")
+    from specproc.report.messages import fit_flag_sentence
+
     collapsed = [f for f in fit.get("flags") or [] if str(f).startswith("collapsed:")]
     return {
         "status": "failed" if collapsed else "flagged" if flags else "ok",
-        "reason": f"the fit found no spectrum ({collapsed[0].split(':', 1)[1]})"
+        "reason": fit_flag_sentence(str(collapsed[0]))
         if collapsed else "",
         "qc": numbers,
         "flags": flags,

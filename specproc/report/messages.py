@@ -7,11 +7,12 @@ output, scan report, cohort page, phantom report) is the sentence this module ma
 Keys
 ----
 Fit flags (:attr:`specproc.fit.FitResult.flags`): ``fisher_singular``, ``not_converged``,
+``collapsed:principal_metabolites_zero``, ``collapsed:shift_at_limit``,
 ``zero_filled_data``, ``apodized_data``, ``at_zero_bound:<member>`` and
 ``at_bound:<parameter>`` with the parameter names of :mod:`specproc.fit.model`
 (``dshift_<member>_hz``, ``ddamping_<member>_per_s``, ``shift_<group>_hz``,
 ``damping_<group>_per_s``, ``gauss_s2``, ``phase0_rad``, ``phase1_s``).
-Row flags of the results table: ``zero_bound``, ``no_crlb``, ``crlb_above_limit``.
+Row flags of the results table: ``zero_bound``, ``no_crlb``.
 QC flags (:class:`specproc.qc.QCFlag` names): ``snr``, ``naa_fwhm_ppm``, ``water_fwhm_ppm``,
 ``residual_ratio``, ``drift_range_hz``, ``rejected_fraction``, ``crlb:<member>``; in the cohort
 summary the fit's ``fit:not_converged``.
@@ -38,7 +39,6 @@ __all__ = [
     "flag_sentence",
     "member_label",
     "qc_flag_sentence",
-    "row_flag_sentence",
     "sentences",
 ]
 
@@ -46,8 +46,9 @@ __all__ = [
 #: information matrix).
 CRLB_UNDEFINED = "—"
 
-#: Long names of the combined sums (the members' own come from their definition files).
-_SUM_NAMES: Mapping[str, str] = {
+#: Long names of the combined sums and lipid components (metabolites' own come from their
+#: definition files).
+_LONG_NAMES: Mapping[str, str] = {
     "tNAA": "total NAA (NAA + NAAG)",
     "tCr": "total creatine (Cr + PCr)",
     "tCho": "total choline (GPC + PCh)",
@@ -66,9 +67,14 @@ _FIXED: Mapping[str, str] = {
                         "(which count every point as independent) are too small.",
     "apodized_data": "The data were apodized before the fit; the noise is no longer white and "
                      "the error bounds are too small.",
+    "collapsed:principal_metabolites_zero": (
+        "The fit failed: NAA and creatine both came out as zero, so it found no brain "
+        "spectrum and every ratio to creatine is undefined."),
+    "collapsed:shift_at_limit": (
+        "The fit failed: its frequency shift ended at the limit (fit.shift_limit_ppm), so it "
+        "did not find the peaks; check the referencing of the data."),
     "zero_bound": "fitted at zero (not detected)",
     "no_crlb": "error bound undefined",
-    "crlb_above_limit": "error bound above the reliability limit",
 }
 
 #: QC flags: key -> (sentence with the value and the limit, sentence without numbers).
@@ -102,8 +108,8 @@ def _full_names() -> dict[str, str]:
 
 def member_label(name: str) -> str:
     """Readable name of a basis member or sum: ``"ascorbate (Asc)"``, ``"MM1.22"``."""
-    if name in _SUM_NAMES:
-        return _SUM_NAMES[name]
+    if name in _LONG_NAMES:
+        return _LONG_NAMES[name]
     full = _full_names().get(name)
     if full and full.lower() != name.lower():
         return f"{full} ({name})"
@@ -225,12 +231,6 @@ def qc_flag_sentence(name: str, value: float | None = None, limit: float | None 
     return name
 
 
-def row_flag_sentence(flags: str) -> str:
-    """Words for the comma-separated row flags of a results row (``zero_bound,no_crlb``)."""
-    words = [_FIXED.get(f.strip(), f.strip()) for f in str(flags or "").split(",") if f.strip()]
-    return "; ".join(words)
-
-
 def flag_sentence(key: str, *, fit: Any = None, value: float | None = None,
                   limit: float | None = None) -> str:
     """Sentence for any flag key (fit, QC or row flag)."""
@@ -294,12 +294,9 @@ def fit_status_sentence(fit: Any) -> str:
     """One line on how the fit ended, without the optimiser's own wording."""
     n = int(getattr(fit, "nfev", 0) or 0)
     flags = tuple(getattr(fit, "flags", ()) or ())
-    if "collapsed:principal_metabolites_zero" in flags:
-        return ("The fit failed: NAA and creatine both came out as zero, so it found no "
-                "brain spectrum and every ratio to creatine is undefined.")
-    if "collapsed:shift_at_limit" in flags:
-        return ("The fit failed: its frequency shift ended at the limit (fit.shift_limit_ppm), "
-                "so it did not find the peaks; check the referencing of the data.")
+    for flag in flags:
+        if flag.startswith("collapsed:"):
+            return fit_flag_sentence(flag, fit)
     if getattr(fit, "success", False):
         return f"The fit converged ({n} model evaluations)."
     if "not_converged" in tuple(getattr(fit, "flags", ()) or ()):
