@@ -264,8 +264,8 @@ def render_report(
     columns += [("ratio", "ratio to tCr ± SD"), ("amplitude", "amplitude (a.u.)"),
                 ("crlb", "CRLB %"), ("reliability", "reliability")]
     warnings = [qc_flag_sentence(f.name, f.value, f.threshold) for f in qc.flags]
-    warnings += [fit_flag_sentence(f, fit) for f in fit.flags
-                 if not f.startswith("at_zero_bound:")]
+    warnings += [fit_flag_sentence(f, fit) for f in fit.flags  # collapsed: in the statement
+                 if not f.startswith(("at_zero_bound:", "collapsed:"))]
     not_detected = [str(r["metabolite"]) for r in rows
                     if "zero_bound" in str(r.get("fit_flag") or "")]
     remarks = list(notes)
