@@ -19,6 +19,8 @@ from specproc.fit.crlb import combine_sums, covariance_from_fisher, estimate_noi
 
 MHZ = 123.2
 CENTRE = 4.65
+#: The classical model of the closed forms: no per-member width deviations or expected widths.
+CLASSICAL = {"damping_sd_hz": 0.0, "width_prior": "none"}
 
 
 def _line(t: np.ndarray, ppm: float) -> np.ndarray:
@@ -51,7 +53,7 @@ def test_single_damped_exponential_matches_kay_closed_form(fixed):
     ppm = scan.ppm()
     config = {
         "range_ppm": [float(ppm.min()), float(ppm.max())], "baseline": False,
-        "fixed": fixed, "shift_sd_hz": 0.0, "start_lorentz_hz": alpha / np.pi,
+        "fixed": fixed, "shift_sd_hz": 0.0, **CLASSICAL, "start_lorentz_hz": alpha / np.pi,
         "start_gauss_hz": 0.0,
         # spectral noise SD per component: sqrt(N)·σ for the unnormalised DFT (Parseval)
         "noise_sd": sigma * np.sqrt(n),
@@ -121,7 +123,7 @@ def test_fit_with_duplicate_members_flags_singular_fisher_without_crashing():
     scan = Scan(fid, dwell_s=dwell, spectrometer_mhz=MHZ, centre_ppm=CENTRE)
     # without per-member shift deviations the two copies have identical model columns
     res = fit_spectrum(scan, basis, config={"baseline": False, "range_ppm": [1.0, 4.2],
-                                            "shift_sd_hz": 0.0})
+                                            "shift_sd_hz": 0.0, **CLASSICAL})
     assert "fisher_singular" in res.flags
     assert np.isnan(res.crlb_sd[0]) and np.isnan(res.crlb_sd[1])
     assert np.isfinite(res.crlb_sd[2])
@@ -144,6 +146,7 @@ def test_zero_filled_data_are_flagged_because_the_bound_is_too_small():
     ppm = filled.ppm()
     config = {"range_ppm": [float(ppm.min()), float(ppm.max())], "baseline": False,
               "fixed": ["damping", "gauss", "phase1", "phase0", "shift"], "shift_sd_hz": 0.0,
+              **CLASSICAL,
               "start_lorentz_hz": alpha / np.pi, "start_gauss_hz": 0.0,
               # spectral noise SD per component, the same with or without the added zeros
               # (Parseval: sqrt(N)·σ over the N measured points)

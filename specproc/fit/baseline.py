@@ -41,7 +41,8 @@ def bspline_design(ppm: np.ndarray, *, knot_ppm: float, degree: int = 3) -> np.n
     n_int = max(1, int(np.ceil((hi - lo) / float(knot_ppm) - 1e-9)))
     step = (hi - lo) / n_int if hi > lo else 1.0
     knots = lo + step * np.arange(-degree, n_int + degree + 1)
-    xc = np.clip(x, lo, hi)
+    # the end knots are computed, so clip to them (not to lo, hi) against rounding
+    xc = np.clip(x, knots[degree], knots[-degree - 1])
     matrix = BSpline.design_matrix(xc, knots, degree, extrapolate=False)
     return np.asarray(matrix.toarray())
 

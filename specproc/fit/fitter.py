@@ -158,13 +158,11 @@ def _fit(scan: Scan, basis: BasisSet, config: Any) -> FitResult:
 
     if settings.baseline:
         bmat = bspline_design(model.ppm, knot_ppm=settings.baseline_knot_ppm)
-        lam = settings.baseline_penalty * penalty_scale(model.ppm.size, bmat.shape[1])
-        pmat = np.sqrt(lam) * second_difference(bmat.shape[1])
     else:
         bmat = np.zeros((model.ppm.size, 0))
-        pmat = np.zeros((0, 0))
-    problem = VarproProblem(model, data, bmat, pmat, noise_sd)
-    theta, messages, ok, nfev = _optimise(problem, model, settings)
+    problem = VarproProblem(model, data, bmat, _penalty_matrix(bmat, settings.baseline_penalty),
+                            noise_sd)
+    problem, theta, messages, ok, nfev = _optimise(problem, model, settings)
     result = _assemble(problem, model, theta, settings, names, kinds, noise_sd, noise_regions,
                        messages, ok, nfev, start)
     if _zero_filled_points(scan.data):
@@ -189,9 +187,59 @@ def _zero_filled_points(fid: np.ndarray) -> int:
     return run if run >= max(8, n // 8) else 0
 
 
+def _penalty_matrix(bmat: np.ndarray, weight: float) -> np.ndarray:
+    """``√λ D₂`` for a relative penalty weight (see :func:`penalty_scale`)."""
+    if not bmat.shape[1]:
+        return np.zeros((0, 0))
+    lam = weight * penalty_scale(bmat.shape[0], bmat.shape[1])
+    return np.sqrt(lam) * second_difference(bmat.shape[1])
+
+
+def _choose_penalty(
+    problem: VarproProblem, theta: np.ndarray, settings: FitSettings
+) -> tuple[VarproProblem, float]:
+    """The baseline penalty weight that minimises ``χ² + 2 · edf`` at θ (log grid).
+
+    The unbiased risk estimate (Mallows' Cp) with the measured noise: the data choose between
+    a stiff baseline (small edf, larger χ²) and a flexible one that absorbs what the basis does
+    not model (broad signals of other shape). Eight grid points per decade of
+    ``baseline_penalty_range``, refined by a parabola in log λ through the best point and its
+    neighbours.
+
+    References
+    ----------
+    .. [1] Mallows CL. Some comments on Cp. Technometrics 1973;15:661-675.
+    .. [2] Craven P, Wahba G. Smoothing noisy data with spline functions. Numer Math
+       1979;31:377-403.
+    """
+    lo, hi = np.log10(settings.baseline_penalty_range)
+    n_grid = max(2, int(np.ceil(4 * (hi - lo))) + 1)
+    grid = np.linspace(lo, hi, n_grid)
+    spectra, fids, phase = problem.model.member_spectra(theta)
+    s2 = problem.noise_sd**2
+    scores = []
+    for log_w in grid:
+        trial = VarproProblem(problem.model, problem.y, problem.bmat,
+                              _penalty_matrix(problem.bmat, 10.0**log_w), problem.noise_sd)
+        sol = trial.solve_given(spectra, fids, phase)
+        chi2 = float(np.vdot(sol.residual, sol.residual).real) / s2
+        scores.append(chi2 + 2.0 * trial.effective_dof(sol))
+    best = int(np.argmin(scores))
+    log_w = grid[best]
+    if 0 < best < n_grid - 1:
+        a, b, c = scores[best - 1:best + 2]
+        denom = a - 2 * b + c
+        if denom > 0:
+            log_w += 0.5 * (a - c) / denom * (grid[1] - grid[0])
+    weight = float(10.0**log_w)
+    chosen = VarproProblem(problem.model, problem.y, problem.bmat,
+                           _penalty_matrix(problem.bmat, weight), problem.noise_sd)
+    return chosen, weight
+
+
 def _optimise(
     problem: VarproProblem, model: SpectralModel, settings: FitSettings
-) -> tuple[np.ndarray, str, bool, int]:
+) -> tuple[VarproProblem, np.ndarray, str, bool, int]:
     lay = model.layout
     fixed = set(settings.fixed)
     theta = start_values(model, settings)
@@ -212,16 +260,20 @@ def _optimise(
             if cost < best_cost:
                 best, best_cost = trial, cost
         theta = best
+    # stage 1: the shared parameters (the separately damped members keep their start)
     stage1 = lay.mask(["phase0", "shift", "damping", "gauss"]) & ~lay.mask(list(fixed))
+    stage1[lay.i_damp_separate] = False
     theta, res1 = problem.refine(theta, stage1, max_nfev=settings.max_iterations, tight=False)
     nfev += res1.nfev if res1 is not None else 0
+    if settings.baseline and settings.baseline_auto and problem.nb:
+        problem, _ = _choose_penalty(problem, theta, settings)
     stage2 = ~lay.mask(list(fixed))
     theta, res2 = problem.refine(theta, stage2, max_nfev=settings.max_iterations, tight=True)
     nfev += res2.nfev if res2 is not None else 0
     last = res2 if res2 is not None else res1
     if last is None:
-        return theta, "all nonlinear parameters held", True, nfev
-    return theta, str(last.message), bool(last.status > 0), nfev
+        return problem, theta, "all nonlinear parameters held", True, nfev
+    return problem, theta, str(last.message), bool(last.status > 0), nfev
 
 
 def _assemble(
@@ -314,6 +366,8 @@ def _assemble(
                                  theta[i_free]])
     fixed_names = {f"dshift_{i}_hz": f"dshift_{names[i]}_hz" for i in range(m)}
     fixed_names.update({f"ddamping_{i}_per_s": f"ddamping_{names[i]}_per_s" for i in range(m)})
+    fixed_names.update({f"damping_member{i}_per_s": f"damping_{names[i]}_per_s"
+                        for i in range(m)})
 
     def rename(name: str) -> str:
         return fixed_names.get(name, name)

@@ -10,9 +10,15 @@ Model (frequency domain, fit-range points ν_k, Hz)::
   centre, so that ``ppm = centre_ppm - ν / MHz`` (NIfTI-MRS convention), and ``ν_p`` that of the
   centre of the fit range (the pivot of the first-order phase; ``φ1`` in s).
 * ``b_m`` are the basis FIDs resampled to the scan; ``c_m ≥ 0`` the amplitudes.
-* ``γ_m = γ_g(m) + Δγ_m`` (s⁻¹; Lorentzian FWHM γ/π Hz) and ``δ_m = δ_h(m) + Δδ_m`` (Hz) are shared
-  within damping groups ``g`` and shift groups ``h``; the per-member deviations ``Δ`` are held by
-  Gaussian priors. **Sign**: with the NIfTI-MRS convention a line at shift δ_ppm evolves as
+* ``γ_m = γ_g(m) + γ⁰_m + Δγ_m`` (s⁻¹; Lorentzian FWHM γ/π Hz) and ``δ_m = δ_h(m) + Δδ_m``
+  (Hz): ``γ_g`` and ``δ_h`` are shared within damping groups ``g`` and shift groups ``h``;
+  ``γ⁰_m`` is the expected intrinsic damping of the member, ``1 / T2_m`` from the relaxation
+  table at the scan's field (setting ``width_prior = "relaxation"``; 0 otherwise), so that
+  ``γ_g`` is the broadening beyond T2 that all metabolites share; the per-member deviations
+  ``Δ`` are held by zero-mean Gaussian priors (SD ``damping_sd_hz``, ``shift_sd_hz`` and, for
+  macromolecules, ``mm_shift_sd_ppm``). Members named by ``separate_damping`` (default: the
+  macromolecules) form damping groups of one member each, bounded and without a prior.
+  **Sign**: with the NIfTI-MRS convention a line at shift δ_ppm evolves as
   ``exp(-2πi (δ_ppm - centre_ppm) MHz t)``, so the factor ``exp(-2πi δ_m t)`` moves member m to
   *higher* ppm by ``δ_m / MHz``: a positive shift in Hz means a line further left in the plot.
 * ``σ²`` (s⁻², parameter ``gauss_s2``) is a Gaussian broadening shared by all members
@@ -22,9 +28,9 @@ Model (frequency domain, fit-range points ν_k, Hz)::
 
 from __future__ import annotations
 
-import dataclasses
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import scipy.fft
@@ -40,8 +46,10 @@ __all__ = [
     "assign_groups",
     "basis_on_scan",
     "build_model",
+    "expected_damping",
     "gauss_fwhm_hz",
     "lorentz_fwhm_hz",
+    "matches",
 ]
 
 _GAUSS_FWHM_PER_SIGMA = 2.0 * np.sqrt(np.log(2.0)) / np.pi  # FWHM (Hz) = this · σ (s⁻¹)
@@ -61,6 +69,15 @@ def _gauss_s2_from_fwhm(fwhm_hz: float) -> float:
     return (float(fwhm_hz) / _GAUSS_FWHM_PER_SIGMA) ** 2
 
 
+def matches(name: str, kind: str, patterns: Sequence[str]) -> bool:
+    """Whether a member matches one of ``patterns`` (a name, ``"kind:<kind>"`` or ``"*"``)."""
+    for pattern in patterns:
+        p = pattern.lower()
+        if p == "*" or p == name.lower() or p == f"kind:{kind.lower()}":
+            return True
+    return False
+
+
 def assign_groups(
     names: Sequence[str], kinds: Sequence[str], groups: Sequence[MemberGroup], what: str
 ) -> np.ndarray:
@@ -74,12 +91,8 @@ def assign_groups(
     out = np.full(len(names), -1, dtype=int)
     for m, (name, kind) in enumerate(zip(names, kinds, strict=True)):
         for g, group in enumerate(groups):
-            for pattern in group.members:
-                p = pattern.lower()
-                if p == "*" or p == name.lower() or p == f"kind:{kind.lower()}":
-                    out[m] = g
-                    break
-            if out[m] >= 0:
+            if matches(name, kind, group.members):
+                out[m] = g
                 break
         if out[m] < 0:
             raise InvalidInputError(f"basis member {name!r} belongs to no fit {what} group")
@@ -169,6 +182,15 @@ class NonlinearLayout:
         SD of the zero-mean Gaussian prior of each parameter (``inf``: none).
     damping_group, shift_group : (n_members,) int ndarray
         Group index of each member.
+    i_damp, i_shift : int ndarray
+        Positions of the group dampings and group shifts in θ.
+    i_ddamp, i_dshift : int ndarray
+        Positions of the per-member damping and shift deviations in θ.
+    ddamp_member, dshift_member : int ndarray
+        The member of each of those deviations.
+    i_damp_separate : int ndarray
+        Positions in θ of the dampings of the members damped separately (a subset of
+        ``i_damp``).
     """
 
     names: tuple[str, ...]
@@ -182,6 +204,9 @@ class NonlinearLayout:
     i_shift: np.ndarray
     i_ddamp: np.ndarray
     i_dshift: np.ndarray
+    ddamp_member: np.ndarray
+    dshift_member: np.ndarray
+    i_damp_separate: np.ndarray
 
     @property
     def size(self) -> int:
@@ -197,9 +222,14 @@ I_PHASE0, I_PHASE1, I_GAUSS = 0, 1, 2
 
 
 def _make_layout(
-    n_members: int,
     damping_group: np.ndarray,
     shift_group: np.ndarray,
+    damping_names: Sequence[str],
+    shift_names: Sequence[str],
+    shift_sd_hz: np.ndarray,
+    damping_sd_per_s: np.ndarray,
+    damping_offset: np.ndarray,
+    n_separate: int,
     settings: FitSettings,
     mhz: float,
 ) -> NonlinearLayout:
@@ -211,50 +241,58 @@ def _make_layout(
     max_damp = np.pi * settings.max_lorentz_hz
     limit_hz = settings.shift_limit_ppm * mhz
     i_damp, i_shift, i_ddamp, i_dshift = [], [], [], []
-    for g in settings.damping_groups:
+    ddamp_member, dshift_member = [], []
+    sep_sd = np.pi * settings.separate_damping_sd_hz
+    for k, g in enumerate(damping_names):
         i_damp.append(len(names))
-        names.append(f"damping_{g.name}_per_s")
+        names.append(f"damping_{g}_per_s")
         families.append("damping")
         lower.append(0.0)
         upper.append(max_damp)
-        prior.append(np.inf)
-    for g in settings.shift_groups:
+        separate = k >= len(damping_names) - n_separate
+        prior.append(sep_sd if separate and sep_sd > 0 else np.inf)
+    for g in shift_names:
         i_shift.append(len(names))
-        names.append(f"shift_{g.name}_hz")
+        names.append(f"shift_{g}_hz")
         families.append("shift")
         lower.append(-limit_hz)
         upper.append(limit_hz)
         prior.append(np.inf)
-    if settings.shift_sd_hz > 0:
-        for m in range(n_members):
-            i_dshift.append(len(names))
-            names.append(f"dshift_{m}_hz")
-            families.append("shift_dev")
-            lower.append(-4.0 * settings.shift_sd_hz)
-            upper.append(4.0 * settings.shift_sd_hz)
-            prior.append(settings.shift_sd_hz)
-    if settings.damping_sd_hz > 0:
+    for m in np.flatnonzero(shift_sd_hz > 0):
+        i_dshift.append(len(names))
+        dshift_member.append(m)
+        names.append(f"dshift_{m}_hz")
+        families.append("shift_dev")
+        lower.append(-4.0 * shift_sd_hz[m])
+        upper.append(4.0 * shift_sd_hz[m])
+        prior.append(shift_sd_hz[m])
+    for m in np.flatnonzero(damping_sd_per_s > 0):
         # the setting is a Lorentzian FWHM in Hz; the parameter a damping rate γ = π·FWHM, s⁻¹
-        damping_sd_per_s = np.pi * settings.damping_sd_hz
-        for m in range(n_members):
-            i_ddamp.append(len(names))
-            names.append(f"ddamping_{m}_per_s")
-            families.append("damping_dev")
-            lower.append(-4.0 * damping_sd_per_s)
-            upper.append(4.0 * damping_sd_per_s)
-            prior.append(damping_sd_per_s)
+        sd = damping_sd_per_s[m]
+        i_ddamp.append(len(names))
+        ddamp_member.append(m)
+        names.append(f"ddamping_{m}_per_s")
+        families.append("damping_dev")
+        # with an expected damping γ⁰ > 0 the bound -γ⁰ keeps the member's damping >= 0
+        lower.append(-min(4.0 * sd, damping_offset[m]) if damping_offset[m] > 0 else -4.0 * sd)
+        upper.append(4.0 * sd)
+        prior.append(sd)
+    as_int = lambda x: np.array(x, dtype=int)  # noqa: E731
     return NonlinearLayout(
         names=tuple(names),
         families=tuple(families),
         lower=np.array(lower, dtype=float),
         upper=np.array(upper, dtype=float),
         prior_sd=np.array(prior, dtype=float),
-        damping_group=np.asarray(damping_group, dtype=int),
-        shift_group=np.asarray(shift_group, dtype=int),
-        i_damp=np.array(i_damp, dtype=int),
-        i_shift=np.array(i_shift, dtype=int),
-        i_ddamp=np.array(i_ddamp, dtype=int),
-        i_dshift=np.array(i_dshift, dtype=int),
+        damping_group=as_int(damping_group),
+        shift_group=as_int(shift_group),
+        i_damp=as_int(i_damp),
+        i_shift=as_int(i_shift),
+        i_ddamp=as_int(i_ddamp),
+        i_dshift=as_int(i_dshift),
+        ddamp_member=as_int(ddamp_member),
+        dshift_member=as_int(dshift_member),
+        i_damp_separate=as_int(i_damp[len(i_damp) - n_separate:]),
     )
 
 
@@ -280,6 +318,8 @@ class SpectralModel:
         Nonlinear parameters.
     group_damp, group_shift : (M, G) ndarray
         One-hot membership matrices of the damping and shift groups.
+    damping_offset : (M,) ndarray
+        Expected intrinsic damping γ⁰_m of each member, s⁻¹ (zeros without a width prior).
     """
 
     fids: np.ndarray
@@ -291,6 +331,7 @@ class SpectralModel:
     layout: NonlinearLayout
     group_damp: np.ndarray
     group_shift: np.ndarray
+    damping_offset: np.ndarray
 
     @property
     def n_members(self) -> int:
@@ -300,12 +341,12 @@ class SpectralModel:
     def rates(self, theta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Per-member damping γ_m (s⁻¹) and shift δ_m (Hz)."""
         lay = self.layout
-        damp = theta[lay.i_damp][lay.damping_group]
+        damp = theta[lay.i_damp][lay.damping_group] + self.damping_offset
         shift = theta[lay.i_shift][lay.shift_group]
         if lay.i_ddamp.size:
-            damp = damp + theta[lay.i_ddamp]
+            damp[lay.ddamp_member] += theta[lay.i_ddamp]
         if lay.i_dshift.size:
-            shift = shift + theta[lay.i_dshift]
+            shift[lay.dshift_member] += theta[lay.i_dshift]
         return damp, shift
 
     def member_fids(self, theta: np.ndarray) -> np.ndarray:
@@ -363,9 +404,9 @@ class SpectralModel:
             cols[:, lay.i_damp] = -(tspec @ self.group_damp)
             cols[:, lay.i_shift] = -2j * np.pi * (tspec @ self.group_shift)
             if lay.i_ddamp.size:
-                cols[:, lay.i_ddamp] = -tspec
+                cols[:, lay.i_ddamp] = -tspec[:, lay.ddamp_member]
             if lay.i_dshift.size:
-                cols[:, lay.i_dshift] = -2j * np.pi * tspec
+                cols[:, lay.i_dshift] = -2j * np.pi * tspec[:, lay.dshift_member]
         else:
             # groups only: one DFT per group of Σ_{m∈g} c_m t x_m
             gd = self.group_damp.T * c  # (G, M)
@@ -413,29 +454,71 @@ def fit_indices(scan: Scan, range_ppm: tuple[float, float]) -> tuple[np.ndarray,
     return sel, ppm[sel]
 
 
+def expected_damping(
+    names: Sequence[str], kinds: Sequence[str], field_t: float, relaxation: Any = None
+) -> np.ndarray:
+    """Intrinsic Lorentzian damping ``1 / T2`` (s⁻¹) of each metabolite member at ``field_t``.
+
+    T2 comes from ``relaxation`` (a :class:`specproc.quantify.RelaxationTimes`) or, when None,
+    from the project's relaxation table at ``field_t``; members not of kind ``"metabolite"``
+    get 0. The line width of a metabolite is ``1 / (π T2)`` plus the broadening of the field
+    inhomogeneity, which all metabolites share (de Graaf, In Vivo NMR Spectroscopy, 3rd ed.
+    2019, ch. 1, from memory).
+    """
+    if relaxation is None:
+        from specproc.quantify import load_relaxation_times
+
+        relaxation = load_relaxation_times(field_t)
+    out = np.zeros(len(names))
+    for m, (name, kind) in enumerate(zip(names, kinds, strict=True)):
+        if kind == "metabolite":
+            out[m] = 1.0 / float(relaxation.metabolite(name).t2_s)
+    return out
+
+
 def build_model(
     scan: Scan, fids: np.ndarray, names: Sequence[str], kinds: Sequence[str],
-    settings: FitSettings,
+    settings: FitSettings, *, relaxation: Any = None,
 ) -> SpectralModel:
-    """Precompute the :class:`SpectralModel` of a scan and basis FIDs on its grid."""
+    """Precompute the :class:`SpectralModel` of a scan and basis FIDs on its grid.
+
+    ``relaxation`` (a :class:`specproc.quantify.RelaxationTimes`) gives the T2 of the width
+    prior; default: the relaxation table at the scan's field.
+    """
     n = scan.n_points
+    m = len(names)
     sel, ppm = fit_indices(scan, settings.range_ppm)
     index = (sel - n // 2) % n  # fftshift position j holds unshifted bin (j - n//2) mod n
     freq = scan.freq_hz()[sel]
     pivot = 0.5 * (freq.min() + freq.max())
-    dg = assign_groups(names, kinds, settings.damping_groups, "damping")
+    separate = np.array([matches(nm, kd, settings.separate_damping)
+                         for nm, kd in zip(names, kinds, strict=True)], dtype=bool)
+    dg = np.full(m, -1, dtype=int)
+    shared = np.flatnonzero(~separate)
+    if shared.size:
+        dg[shared] = assign_groups([names[i] for i in shared], [kinds[i] for i in shared],
+                                   settings.damping_groups, "damping")
     sg = assign_groups(names, kinds, settings.shift_groups, "shift")
-    # groups without members get no parameter
-    used_d, dg = np.unique(dg, return_inverse=True)
+    # groups without members get no parameter; each separately damped member is a group
+    used_d = np.unique(dg[shared])
+    damping_names = [settings.damping_groups[i].name for i in used_d]
+    dg[shared] = np.searchsorted(used_d, dg[shared])
+    for k, i in enumerate(np.flatnonzero(separate)):
+        dg[i] = used_d.size + k
+        damping_names.append(f"member{i}")
     used_s, sg = np.unique(sg, return_inverse=True)
-    settings = dataclasses.replace(
-        settings,
-        damping_groups=tuple(settings.damping_groups[i] for i in used_d),
-        shift_groups=tuple(settings.shift_groups[i] for i in used_s),
-    )
-    layout = _make_layout(len(names), dg, sg, settings, scan.spectrometer_mhz)
-    m = len(names)
-    group_damp = np.zeros((m, used_d.size))
+    shift_names = [settings.shift_groups[i].name for i in used_s]
+    is_mm = np.array([k == "macromolecule" for k in kinds], dtype=bool)
+    mhz = scan.spectrometer_mhz
+    shift_sd = np.where(is_mm, settings.mm_shift_sd_ppm * mhz, settings.shift_sd_hz)
+    damping_sd = np.where(separate, 0.0, np.pi * settings.damping_sd_hz)
+    offset = np.zeros(m)
+    if settings.width_prior == "relaxation":
+        offset = np.where(separate, 0.0,
+                          expected_damping(names, kinds, scan.field_t, relaxation))
+    layout = _make_layout(dg, sg, damping_names, shift_names, shift_sd, damping_sd, offset,
+                          int(separate.sum()), settings, mhz)
+    group_damp = np.zeros((m, len(damping_names)))
     group_damp[np.arange(m), dg] = 1.0
     group_shift = np.zeros((m, used_s.size))
     group_shift[np.arange(m), sg] = 1.0
@@ -445,10 +528,11 @@ def build_model(
         index=index,
         ppm=ppm,
         nu_hz=freq - pivot,
-        mhz=scan.spectrometer_mhz,
+        mhz=mhz,
         layout=layout,
         group_damp=group_damp,
         group_shift=group_shift,
+        damping_offset=offset,
     )
 
 

@@ -13,7 +13,10 @@ from typing import Any
 
 from specproc.errors import InvalidInputError
 
-__all__ = ["FIXABLE", "FitSettings", "MemberGroup", "settings_from_config"]
+__all__ = ["FIXABLE", "WIDTH_PRIORS", "FitSettings", "MemberGroup", "settings_from_config"]
+
+#: Centres of the per-metabolite Lorentzian widths (see :class:`FitSettings`).
+WIDTH_PRIORS: tuple[str, ...] = ("relaxation", "none")
 
 #: Families of nonlinear parameters that can be held at their starting values.
 FIXABLE: tuple[str, ...] = (
@@ -66,15 +69,41 @@ class FitSettings:
         Knot spacing of the cubic B-spline baseline, ppm.
     baseline_penalty : float
         Roughness (second-difference) penalty weight, relative to the number of spectral points
-        per baseline coefficient (see :func:`specproc.fit.baseline.penalty_scale`).
+        per baseline coefficient (see :func:`specproc.fit.baseline.penalty_scale`); used as
+        given when ``baseline_auto`` is false.
+    baseline_auto : bool
+        Choose the penalty weight from the data: after the first refinement stage the weight in
+        ``baseline_penalty_range`` (log grid) that minimises the unbiased risk estimate
+        ``χ² + 2 · edf`` (Mallows' Cp with the measured noise; edf the effective number of
+        linear parameters) is kept (see :func:`specproc.fit.baseline.choose_penalty`).
+    baseline_penalty_range : (float, float)
+        Smallest and largest weight considered by ``baseline_auto``.
     damping_groups, shift_groups : tuple of MemberGroup
         Members sharing one Lorentzian damping / one frequency shift.
+    separate_damping : tuple of str
+        Members (patterns as in :class:`MemberGroup`) that get a Lorentzian damping of their
+        own, bounded by 0 and ``max_lorentz_hz``, instead of their damping group's (default:
+        the macromolecules, whose widths differ between components and from any fixed
+        parametrisation).
+    separate_damping_sd_hz : float
+        Prior SD of those dampings as a Lorentzian FWHM added to the member's own shape, Hz
+        (a half-normal prior, the damping being >= 0); 0: none.
     shift_sd_hz : float
-        Prior SD of the per-member deviation from its group's shift, Hz (0: no deviations).
+        Prior SD of the per-member deviation of a metabolite from its group's shift, Hz (0: no
+        deviations).
     damping_sd_hz : float
-        Prior SD of the per-member deviation from its group's Lorentzian width, as a FWHM in
-        Hz (the damping-rate parameter ``ddamping_<k>_per_s`` has SD ``π · damping_sd_hz``
-        s⁻¹); 0: none.
+        Prior SD of the per-member deviation of a metabolite from its group's Lorentzian width
+        plus its expected width (see ``width_prior``), as a FWHM in Hz (the damping-rate
+        parameter ``ddamping_<k>_per_s`` has SD ``π · damping_sd_hz`` s⁻¹); 0: none.
+    width_prior : str
+        Centre of the per-metabolite Lorentzian widths: ``"relaxation"`` adds to each
+        metabolite its intrinsic width ``1 / (π T2)`` at the scan's field from the relaxation
+        table (:func:`specproc.quantify.load_relaxation_times`), so the fitted group width is
+        the broadening beyond T2 shared by all metabolites; ``"none"``: no expected
+        differences (the deviations are centred on zero).
+    mm_shift_sd_ppm : float
+        Prior SD of the shift of each macromolecule member from its group's shift, ppm (0: no
+        deviations).
     shift_search_ppm : float
         Half-width of the coarse frequency search, ppm.
     shift_limit_ppm : float
@@ -99,13 +128,19 @@ class FitSettings:
     baseline: bool = True
     baseline_knot_ppm: float = 0.4
     baseline_penalty: float = 1.0
+    baseline_auto: bool = True
+    baseline_penalty_range: tuple[float, float] = (1e-2, 1e4)
     damping_groups: tuple[MemberGroup, ...] = (
         MemberGroup("macromolecules", ("kind:macromolecule",)),
         MemberGroup("metabolites", ("*",)),
     )
     shift_groups: tuple[MemberGroup, ...] = (MemberGroup("all", ("*",)),)
+    separate_damping: tuple[str, ...] = ("kind:macromolecule",)
+    separate_damping_sd_hz: float = 5.0
     shift_sd_hz: float = 1.0
-    damping_sd_hz: float = 0.0
+    damping_sd_hz: float = 0.5
+    width_prior: str = "relaxation"
+    mm_shift_sd_ppm: float = 0.02
     shift_search_ppm: float = 0.15
     shift_limit_ppm: float = 0.25
     start_lorentz_hz: float = 3.0
@@ -128,7 +163,8 @@ class FitSettings:
             regions.append(tuple(sorted(float(v) for v in region)))
         object.__setattr__(self, "noise_ppm", tuple(regions))
         for name in ("noise_sd", "baseline_penalty", "shift_sd_hz", "damping_sd_hz",
-                     "shift_search_ppm", "shift_limit_ppm", "start_lorentz_hz",
+                     "mm_shift_sd_ppm", "separate_damping_sd_hz", "shift_search_ppm",
+                     "shift_limit_ppm", "start_lorentz_hz",
                      "start_gauss_hz"):
             value = float(getattr(self, name))
             if not value >= 0:
@@ -139,6 +175,17 @@ class FitSettings:
             if not value > 0:
                 raise InvalidInputError(f"fit {name} must be > 0, got {value}")
             object.__setattr__(self, name, value)
+        lo_p, hi_p = sorted(float(v) for v in self.baseline_penalty_range)
+        if not (lo_p > 0 and hi_p >= lo_p):
+            raise InvalidInputError(
+                f"fit baseline_penalty_range {list(self.baseline_penalty_range)} must be two "
+                "positive numbers"
+            )
+        object.__setattr__(self, "baseline_penalty_range", (lo_p, hi_p))
+        if self.width_prior not in WIDTH_PRIORS:
+            raise InvalidInputError(
+                f"fit width_prior {self.width_prior!r} is not one of {', '.join(WIDTH_PRIORS)}"
+            )
         if int(self.max_iterations) < 1:
             raise InvalidInputError("fit max_iterations must be >= 1")
         object.__setattr__(self, "max_iterations", int(self.max_iterations))
@@ -149,6 +196,8 @@ class FitSettings:
             )
         object.__setattr__(self, "fixed", tuple(self.fixed))
         object.__setattr__(self, "members", tuple(str(m) for m in self.members))
+        object.__setattr__(self, "separate_damping",
+                           tuple(str(m) for m in self.separate_damping))
         for attr in ("damping_groups", "shift_groups"):
             groups = tuple(_as_group(g, attr) for g in getattr(self, attr))
             if not groups:
@@ -162,6 +211,7 @@ class FitSettings:
         """Plain (TOML/JSON-able) form, the layout of the ``[fit]`` table."""
         out = dataclasses.asdict(self)
         out["range_ppm"] = list(self.range_ppm)
+        out["baseline_penalty_range"] = list(self.baseline_penalty_range)
         out["noise_ppm"] = [list(r) for r in self.noise_ppm]
         for attr in ("damping_groups", "shift_groups"):
             out[attr] = [{"name": g.name, "members": list(g.members)} for g in getattr(self, attr)]
@@ -216,7 +266,8 @@ def settings_from_config(config: Any = None) -> FitSettings:
         )
     kwargs: dict[str, Any] = {}
     for key, value in table.items():
-        if key in ("range_ppm", "fixed", "members"):
+        if key in ("range_ppm", "fixed", "members", "baseline_penalty_range",
+                   "separate_damping"):
             value = tuple(value)
         elif key == "noise_ppm":
             value = tuple(tuple(r) for r in value)

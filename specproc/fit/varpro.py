@@ -133,15 +133,48 @@ class VarproProblem:
         if key == self._cache_key and self._cache is not None:
             return self._cache
         spectra, fids, phase = self.model.member_spectra(theta)
+        sol = self.solve_given(spectra, fids, phase)
+        self._cache_key, self._cache = key, sol
+        return sol
+
+    def solve_given(
+        self, spectra: np.ndarray, fids: np.ndarray, phase: np.ndarray
+    ) -> LinearSolution:
+        """Amplitudes c ≥ 0 and baseline β for given member spectra A (K, M) (no cache)."""
         g, h, qa = self.reduced_normal(spectra)
         c = _nnls_normal(g, h)
         rb = self.qy - qa @ c
         beta = self._baseline_from(rb)
         residual = self.y - spectra @ c - (self.bmat @ beta if self.nb else 0.0)
         penalty = self.pmat @ beta if self.nb else np.zeros(0, dtype=complex)
-        sol = LinearSolution(c, beta, residual, penalty, spectra, fids, phase)
-        self._cache_key, self._cache = key, sol
-        return sol
+        return LinearSolution(c, beta, residual, penalty, spectra, fids, phase)
+
+    def effective_dof(self, sol: LinearSolution) -> float:
+        """Effective number of linear parameters ``tr((XᵀX + PᵀP)⁻¹ XᵀX)`` at a solution.
+
+        ``X`` is the real design of the free amplitudes (c > 0) and of the real and imaginary
+        baseline coefficients, ``P`` the penalty; the trace of the hat matrix of the penalised
+        linear fit (Hastie & Tibshirani, Generalized Additive Models, 1990, ch. 3).
+        """
+        a = sol.spectra[:, sol.amplitudes > 0]
+        nf, nb = a.shape[1], self.nb
+        if not nb:
+            return float(nf)
+        btb = self.bmat.T @ self.bmat
+        ptp = self.pmat.T @ self.pmat
+        bta = self.bmat.T @ a  # (nb, nf) complex: B real, so Re/Im parts separate
+        xtx = np.zeros((nf + 2 * nb, nf + 2 * nb))
+        xtx[:nf, :nf] = (a.conj().T @ a).real
+        xtx[:nf, nf:nf + nb] = bta.real.T
+        xtx[:nf, nf + nb:] = bta.imag.T
+        xtx[nf:nf + nb, :nf] = bta.real
+        xtx[nf + nb:, :nf] = bta.imag
+        xtx[nf:nf + nb, nf:nf + nb] = btb
+        xtx[nf + nb:, nf + nb:] = btb
+        h = xtx.copy()
+        h[nf:nf + nb, nf:nf + nb] += ptp
+        h[nf + nb:, nf + nb:] += ptp
+        return float(np.trace(_solve_psd(h, xtx)))
 
     # ------------------------------------------------------------------ residual, Jacobian
     def residual_vector(self, theta: np.ndarray) -> np.ndarray:
