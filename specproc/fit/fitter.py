@@ -162,9 +162,11 @@ def _fit(scan: Scan, basis: BasisSet, config: Any) -> FitResult:
         bmat = np.zeros((model.ppm.size, 0))
     problem = VarproProblem(model, data, bmat, _penalty_matrix(bmat, settings.baseline_penalty),
                             noise_sd)
-    problem, theta, messages, ok, nfev = _optimise(problem, model, settings)
+    problem, weight, theta, messages, ok, nfev = _optimise(problem, model, settings)
     result = _assemble(problem, model, theta, settings, names, kinds, noise_sd, noise_regions,
                        messages, ok, nfev, start)
+    if problem.nb:
+        result = dataclasses.replace(result, baseline_penalty=weight)
     if _zero_filled_points(scan.data):
         # Zero filling makes neighbouring spectral points correlated while F = JᵀJ/s² treats
         # them as independent: the bounds come out too small (by about √factor).
@@ -239,7 +241,7 @@ def _choose_penalty(
 
 def _optimise(
     problem: VarproProblem, model: SpectralModel, settings: FitSettings
-) -> tuple[VarproProblem, np.ndarray, str, bool, int]:
+) -> tuple[VarproProblem, float, np.ndarray, str, bool, int]:
     lay = model.layout
     fixed = set(settings.fixed)
     theta = start_values(model, settings)
@@ -265,15 +267,16 @@ def _optimise(
     stage1[lay.i_damp_separate] = False
     theta, res1 = problem.refine(theta, stage1, max_nfev=settings.max_iterations, tight=False)
     nfev += res1.nfev if res1 is not None else 0
+    weight = settings.baseline_penalty
     if settings.baseline and settings.baseline_auto and problem.nb:
-        problem, _ = _choose_penalty(problem, theta, settings)
+        problem, weight = _choose_penalty(problem, theta, settings)
     stage2 = ~lay.mask(list(fixed))
     theta, res2 = problem.refine(theta, stage2, max_nfev=settings.max_iterations, tight=True)
     nfev += res2.nfev if res2 is not None else 0
     last = res2 if res2 is not None else res1
     if last is None:
-        return problem, theta, "all nonlinear parameters held", True, nfev
-    return problem, theta, str(last.message), bool(last.status > 0), nfev
+        return problem, weight, theta, "all nonlinear parameters held", True, nfev
+    return problem, weight, theta, str(last.message), bool(last.status > 0), nfev
 
 
 def _assemble(

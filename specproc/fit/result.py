@@ -103,6 +103,9 @@ class FitResult:
         Spectrometer frequency, MHz.
     settings : dict
         The fit settings used (``FitSettings.to_dict()``).
+    baseline_penalty : float
+        Relative roughness-penalty weight of the baseline used (chosen from the data with
+        ``baseline_auto``); NaN without a baseline.
     """
 
     names: tuple[str, ...]
@@ -146,6 +149,7 @@ class FitResult:
     contributions: np.ndarray
     spectrometer_mhz: float
     settings: dict[str, Any] = field(default_factory=dict)
+    baseline_penalty: float = float("nan")
 
     def amplitude(self, name: str) -> float:
         """Amplitude of a member or combined sum (case-insensitive)."""
