@@ -31,7 +31,8 @@ Signal model of one transient of one coil (time t after the echo, NIfTI-MRS sign
   with the 3 T times of ``specproc/data/relaxation.toml`` (through
   :func:`specproc.quantify.load_relaxation_times`), ``K`` an arbitrary receiver scale;
 * ``L(t) = exp(-π Γ_L t) · exp(-(π Γ_G t)² / (4 ln 2))``: Lorentzian (FWHM Γ_L) and Gaussian
-  (FWHM Γ_G) broadening, different per subject;
+  (FWHM Γ_G) broadening, different per subject; Γ_L is the width of NAA, and every other
+  metabolite decays faster by ``exp(-(1/T2_m - 1/T2_NAA) t)`` (its own T2);
 * ``MM`` the macromolecule components of ``specproc/data/basis/macromolecules.toml`` (short
   TE), ``W_res`` a
   residual water line left by imperfect water suppression;
@@ -216,10 +217,14 @@ def build_scan_pair(
     # ---- metabolite signal (noise-free, before artefacts)
     amplitudes: dict[str, float] = {}
     signal = np.zeros(N_POINTS, dtype=complex)
+    # each metabolite decays with its own T2 during the acquisition: relative to NAA (whose
+    # decay is part of L(t)) its line is broader by 1/(π T2) - 1/(π T2_NAA) (phantom: one T2)
     for name, c in conc.items():
         amp = SCALE_K * (1.0 - csf) * c * r_metab[name]
         amplitudes[name] = amp
-        signal += amp * basis.fids[basis.index(name)]
+        extra = 0.0 if phantom else (1.0 / relax.metabolite(name).t2_s
+                                     - 1.0 / relax.metabolite("NAA").t2_s)
+        signal += amp * basis.fids[basis.index(name)] * np.exp(-extra * t)
     mm_amp: dict[str, float] = {}
     if not phantom:
         for name, a in MM_AMPLITUDE.items():

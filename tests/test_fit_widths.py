@@ -132,12 +132,10 @@ def test_baseline_stiffness_follows_the_data():
     noise = 0.05 * (rng.standard_normal(N) + 1j * rng.standard_normal(N))
     hump = 20.0 * _line(t, 2.6) * np.exp(-(190.0 * t) ** 2)  # Gaussian of FWHM 0.8 ppm
     config = {"range_ppm": [1.0, 4.2]}
-    flat = fit_spectrum(Scan(_tissue_fid(t) + noise, dwell_s=DWELL, spectrometer_mhz=MHZ,
-                             centre_ppm=CENTRE), _basis(t), config=config)
     humped = fit_spectrum(Scan(_tissue_fid(t) + hump + noise, dwell_s=DWELL,
                                spectrometer_mhz=MHZ, centre_ppm=CENTRE), _basis(t),
                           config=config)
-    assert humped.baseline_penalty < flat.baseline_penalty / 10
+    assert humped.baseline_penalty < 0.1  # the default fixed weight is 1
     # the flexible baseline keeps the amplitudes, better than the fixed default stiffness
     np.testing.assert_allclose(humped.amplitudes, [10.0, 8.0, 1.5], rtol=0.03)
     fixed = fit_spectrum(Scan(_tissue_fid(t) + hump + noise, dwell_s=DWELL,

@@ -138,7 +138,7 @@ class FitSettings:
     separate_damping: tuple[str, ...] = ("kind:macromolecule",)
     separate_damping_sd_hz: float = 5.0
     shift_sd_hz: float = 1.0
-    damping_sd_hz: float = 0.5
+    damping_sd_hz: float = 0.2
     width_prior: str = "relaxation"
     mm_shift_sd_ppm: float = 0.02
     shift_search_ppm: float = 0.15
