@@ -496,7 +496,8 @@ def build_model(
     dg = np.full(m, -1, dtype=int)
     shared = np.flatnonzero(~separate)
     if shared.size:
-        dg[shared] = assign_groups([names[i] for i in shared], [kinds[i] for i in shared],
+        dg[shared] = assign_groups([names[int(i)] for i in shared],
+                                   [kinds[int(i)] for i in shared],
                                    settings.damping_groups, "damping")
     sg = assign_groups(names, kinds, settings.shift_groups, "shift")
     # groups without members get no parameter; each separately damped member is a group
