@@ -1,9 +1,11 @@
-"""Start-up cost of the command line: which heavy modules a command loads (not a timing test).
+"""Start-up cost of the package and the command line: which heavy modules they load (not a
+timing test).
 
-``specproc --help`` and each sub-command's ``--help`` must load none of numpy, scipy, the
-readers' libraries, matplotlib, rich or dask; ``specproc info FILE`` loads what reading a file
-needs and none of the processing or plotting libraries. Each check runs in a fresh interpreter,
-since this test process has imported everything already.
+``import specproc`` (with ``dir()`` and its ``__all__``), ``specproc --help`` and each
+sub-command's ``--help`` must load none of numpy, scipy, the readers' libraries, matplotlib,
+rich or dask; ``specproc info FILE`` loads what reading a file needs and none of the processing
+or plotting libraries. Each check runs in a fresh interpreter, since this test process has
+imported everything already.
 """
 
 import json
@@ -54,3 +56,26 @@ def test_info_loads_only_what_reading_needs():
     assert "points" in out.lower()
     assert loaded <= READING
     assert "numpy" in loaded  # the probe does see what a command imports
+
+
+_PACKAGE_PROBE = """
+import json, sys
+import specproc
+names = dir(specproc)
+assert set(specproc.__all__) <= set(names), "dir() lists every public name"
+specproc.SpecprocError, specproc.InvalidInputError
+before = sorted(m for m in {heavy} if m in sys.modules)
+specproc.Scan  # the first use of a lazy name imports its module
+after = sorted(m for m in {heavy} if m in sys.modules)
+print(json.dumps([before, after]))
+"""
+
+
+def test_import_specproc_loads_no_heavy_module():
+    proc = subprocess.run([sys.executable, "-c", _PACKAGE_PROBE.format(heavy=HEAVY)],
+                          capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 0, proc.stderr
+    before, after = json.loads(proc.stdout.strip().splitlines()[-1])
+    assert before == []
+    assert "numpy" in after  # the probe does see what a first use imports
+    assert "matplotlib" not in after and "scipy.signal" not in after

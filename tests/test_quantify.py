@@ -525,9 +525,9 @@ def test_forward_model_of_a_voxel_is_inverted():
 def test_docstring_examples_run():
     import doctest
 
-    import specproc.quantify.result
+    from specproc.quantify import result as result_module
 
-    result = doctest.testmod(specproc.quantify.result)
+    result = doctest.testmod(result_module)
     assert result.attempted > 0 and result.failed == 0
 
 
