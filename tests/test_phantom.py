@@ -145,6 +145,22 @@ def check_phantom_page(out: Path, recovery: list[dict[str, str]],
     assert html.count("<svg") >= 1 + 2 + 3  # recovery, two linearity panels, three trends
 
 
+def test_implausible_recovery_names_the_water_content(phantom_files: Path,
+                                                      phantom_basis) -> None:
+    # the solution is pure water (55 510 mM); a nominal file saying 2 % of it makes every
+    # measured concentration 50 times too small: a recovery of about 2 %
+    text = 'reference = "water"\nwater_mm = 1110.2\n' + _phantom_block("low", 5.0, 4.0, 21.0)
+    (phantom_files / "wrong_water.toml").write_text(text, "utf-8")
+    scan = next(phantom_files.glob("*low*_svs.nii.gz"))
+    m = analyse_phantom(scan, load_nominal(phantom_files / "wrong_water.toml"),
+                        water_path=str(scan).replace("_svs", "_mrsref"),
+                        config={"preprocess": {"water_removal": {"enabled": False}}},
+                        basis=phantom_basis)
+    assert m.recovery_percent["NAA"] == pytest.approx(2.0, rel=0.1)
+    warning = [n for n in m.notes if n.startswith("Implausible recovery")]
+    assert len(warning) == 1 and "water_mm = 1110.2 mM" in warning[0]
+
+
 def test_temperature_without_water_reference_uses_residual_water(phantom_files: Path,
                                                                  phantom_basis) -> None:
     text = 'reference = "Cr"\n' + _phantom_block("high", 15.0, 12.0, 41.0)
