@@ -166,8 +166,14 @@ def _header_rows(scan: Any, water: Any) -> list[dict[str, str]]:
         for key, value in dict(obj.header).items():
             if key == "ProcessingApplied":
                 continue
-            if isinstance(value, list | tuple) and len(value) > 8:
+            if isinstance(value, Mapping) and "Value" in value:  # a NIfTI-MRS user key
+                described = value.get("Description")
+                value = f"{value['Value']}" + (f" ({described})" if described else "")
+            elif isinstance(value, list | tuple) and len(value) > 8:
                 value = f"[{len(value)} values]"
+            elif isinstance(value, list | tuple):
+                value = ", ".join(format_number(v) if isinstance(v, float) else str(v)
+                                  for v in value)
             rows.append({"file": label, "key": str(key), "value": str(value)})
     return rows
 
