@@ -9,7 +9,12 @@
     lists them, ``;``-separated) or ``failed`` (``reason`` says why, in one line). ``gm``,
     ``wm``, ``csf`` are the voxel's tissue fractions used, ``tissue_source`` says where they
     came from (``maps`` or ``labels``: computed from the anatomy, :mod:`specproc.tissue`, with
-    the share of the voxel in no map in ``unsegmented``; ``given``: manifest numbers).
+    the share of the voxel in no map in ``unsegmented``; ``given``: manifest numbers). The
+    edited QC columns (:data:`specproc.report.edited.EDITED_QC_FIELDS`: fit error of the DIFF
+    model and subtraction artefact at 3.2 ppm in per cent, ON/OFF pairs rejected) are filled
+    for J-difference edited scans only; their flags are ``edited:<key>``. In ``cohort.tsv`` an
+    edited scan has the rows ``GABA+`` (ratio to tCr, water-referenced mM, bounds) and, with
+    tissue fractions, ``GABA+_alpha`` (alpha-corrected mM), of kind ``edited``.
 ``cohort.html``
     One self-contained page (:class:`specproc.report.cohort.CohortPage`): summary statistics
     with the exclusion rules of the ``[qc]`` settings, one point per scan, the mean fitted
@@ -33,6 +38,7 @@ from specproc._atomic import atomic_path, write_text
 from specproc._tsv import TsvWriter
 from specproc.batch.manifest import ScanEntry
 from specproc.batch.task import DONE_NAME, QC_FIELDS, SUMMARY_NAME, read_json
+from specproc.report.edited import EDITED_QC_FIELDS
 
 __all__ = ["COHORT_COLUMNS", "QC_COLUMNS", "write_cohort"]
 
@@ -46,8 +52,8 @@ COHORT_COLUMNS: tuple[str, ...] = (
 )
 #: Columns of ``cohort_qc.tsv``.
 QC_COLUMNS: tuple[str, ...] = (
-    *_ID_COLUMNS, "scan", "water", "status", *QC_FIELDS, "gm", "wm", "csf", "unsegmented",
-    "tissue_source", "flags", "reason",
+    *_ID_COLUMNS, "scan", "water", "status", *QC_FIELDS, *EDITED_QC_FIELDS, "gm", "wm", "csf",
+    "unsegmented", "tissue_source", "flags", "reason",
 )
 _TISSUE_FIELDS = ("gm", "wm", "csf", "unsegmented", "tissue_source")
 
@@ -143,7 +149,8 @@ def _write_scan(entry: ScanEntry, summary: Mapping[str, Any], main: TsvWriter,
         summary["reason"] = reason  # the page shows the same relative text
     tissue = dict(summary.get("tissue") or {})
     qc_file.write((*ids, entry.scan_label, entry.water_label, status,
-                   *(qc.get(k) for k in QC_FIELDS), *(tissue.get(k) for k in _TISSUE_FIELDS),
+                   *(qc.get(k) for k in (*QC_FIELDS, *EDITED_QC_FIELDS)),
+                   *(tissue.get(k) for k in _TISSUE_FIELDS),
                    ";".join(flags), reason))
     if status == "failed":
         counts["failed"] += 1

@@ -11,7 +11,9 @@ Flow of :func:`run_batch`:
 2. A scan whose ``done.json`` records the same hashes is skipped (resume).
 3. The basis of each distinct protocol is simulated once, in the parent, and saved to
    ``OUTDIR/basis/<key>.npz`` (the simulation cache of :mod:`specproc.basis` is used too); the
-   workers load it by path.
+   workers load it by path. An edited scan (``DIM_EDIT`` axis, :mod:`specproc.edited`) has no
+   plain basis: its protocol is PRESS with its editing pulses, whose key includes the pulses,
+   and its ON, OFF and DIFF bases are saved to ``OUTDIR/basis/<key>-{on,off,diff}.npz``.
 4. The remaining scans go to an executor: in-process (``workers=1``), local worker processes
    (:class:`concurrent.futures.ProcessPoolExecutor`, ``spawn`` start method), or a Dask
    distributed cluster (``scheduler="tcp://host:port"``; the workers must see the same file
@@ -103,9 +105,22 @@ def config_sha256(config: Mapping[str, Any]) -> str:
     return json_sha256(config)
 
 
-def _simulate(protocol: Protocol, path: Path) -> None:
-    """Simulate (or take from the cache) the basis of a protocol and save it to ``path``."""
-    protocol.simulate().save(path)
+def _simulate(protocol: Protocol, path: Path, conditions: Any = None) -> None:
+    """Simulate (or take from the cache) the basis of a protocol and save it to ``path``.
+
+    With the editing ``conditions`` of an edited scan, its ON, OFF and DIFF bases
+    (:func:`specproc.edited.workflow.simulate_for_protocol`) are saved to
+    ``<path>-on.npz``, ``<path>-off.npz`` and ``<path>-diff.npz``.
+    """
+    if conditions is None:
+        protocol.simulate().save(path)
+        return
+    from specproc.batch.task import edited_basis_paths
+    from specproc.edited.workflow import simulate_for_protocol
+
+    basis = simulate_for_protocol(protocol, conditions)
+    for part, file in edited_basis_paths(path).items():
+        getattr(basis, part).save(file)
 
 
 @dataclass(frozen=True)
@@ -114,6 +129,7 @@ class _Prepared:
     inputs: dict[str, Any]
     protocol: Protocol | None
     reason: str = ""
+    conditions: Any = None  # EditConditions of an edited scan
 
 
 def _prepare(entries: Sequence[ScanEntry], *, config: Mapping[str, Any], config_hash: str,
@@ -122,6 +138,8 @@ def _prepare(entries: Sequence[ScanEntry], *, config: Mapping[str, Any], config_
     """Read each scan's header (one at a time) and hash its inputs."""
     from specproc import __version__
     from specproc.batch.task import apply_overrides
+    from specproc.edited.conditions import edit_conditions, is_edited
+    from specproc.edited.workflow import edited_basis_key, edited_protocol
     from specproc.io import load
     from specproc.protocol import resolve_protocol
 
@@ -140,15 +158,23 @@ def _prepare(entries: Sequence[ScanEntry], *, config: Mapping[str, Any], config_
                     entry.tissue_maps.describe().items()
                     if path is not None and role != "label_table"}
             scan = apply_overrides(load(entry.scan_path), entry.overrides)
-            protocol = resolve_protocol(scan, manifest=entry.timings, config=config,
-                                        metabolites=metabolites, macromolecules=macromolecules,
-                                        phantom=entry.is_phantom)
+            conditions = None
+            if is_edited(scan):  # its own ON, OFF and DIFF bases, keyed with the pulses
+                conditions = edit_conditions(scan)
+                protocol = edited_protocol(scan, config, manifest=entry.timings)
+                basis_key = edited_basis_key(protocol, conditions)
+            else:
+                protocol = resolve_protocol(scan, manifest=entry.timings, config=config,
+                                            metabolites=metabolites,
+                                            macromolecules=macromolecules,
+                                            phantom=entry.is_phantom)
+                basis_key = protocol.key()
             del scan
         except Exception as exc:  # recorded as a failed scan
             yield _Prepared(entry, inputs, None, failure_reason(exc))
             continue
-        inputs["basis"] = protocol.key()
-        yield _Prepared(entry, inputs, protocol)
+        inputs["basis"] = basis_key
+        yield _Prepared(entry, inputs, protocol, conditions=conditions)
 
 
 # ============================================================================ executors
@@ -318,12 +344,24 @@ def _make_executor(workers: int, scheduler: str | None) -> _Executor:
 
 # ============================================================================ the batch
 
-def _prepare_basis(protocol: Protocol, out: Path, key: str) -> Path | str:
-    """Path of the protocol's basis file (simulated now if missing), or the failure reason."""
-    path = out / "basis" / f"{key}.npz"
-    if not path.is_file():
+def _prepare_basis(protocol: Protocol, out: Path, key: str, conditions: Any = None
+                   ) -> Path | str:
+    """Path of the protocol's basis file (simulated now if missing), or the failure reason.
+
+    For an edited scan (``conditions`` given) the path is the stem ``basis/<key>`` of its
+    three files (:func:`specproc.batch.task.edited_basis_paths`).
+    """
+    from specproc.batch.task import edited_basis_paths
+
+    if conditions is None:
+        path = out / "basis" / f"{key}.npz"
+        missing = not path.is_file()
+    else:
+        path = out / "basis" / key
+        missing = not all(p.is_file() for p in edited_basis_paths(path).values())
+    if missing:
         try:
-            _simulate(protocol, path)
+            _simulate(protocol, path, conditions)
         except InvalidInputError as exc:
             return str(exc)
     return path
@@ -602,7 +640,8 @@ def _run_entries(entries: Sequence[ScanEntry], out: Path, cfg: dict[str, Any],
                 if prep.protocol is not None:
                     basis_key = prep.inputs["basis"]
                     if basis_key not in bases:
-                        bases[basis_key] = _prepare_basis(prep.protocol, out, basis_key)
+                        bases[basis_key] = _prepare_basis(prep.protocol, out, basis_key,
+                                                          prep.conditions)
                     if isinstance(bases[basis_key], str):
                         reason = f"basis simulation failed: {bases[basis_key]}"
                 if reason:
@@ -619,6 +658,7 @@ def _run_entries(entries: Sequence[ScanEntry], out: Path, cfg: dict[str, Any],
                     else str(prep.entry.water_path),
                     "out_dir": str(folder),
                     "basis_path": str(bases[prep.inputs["basis"]]),
+                    "edited": prep.conditions is not None,
                     "protocol": prep.protocol,
                     "config": cfg,
                     "tissue": None if prep.entry.tissue is None else dict(prep.entry.tissue),

@@ -148,6 +148,29 @@ def _load_basis(path: str) -> Any:
     return basis
 
 
+def edited_basis_paths(stem: str | Path) -> dict[str, Path]:
+    """Files of the ON, OFF and DIFF bases of an edited protocol saved under ``stem``."""
+    return {part: Path(f"{stem}-{part}.npz") for part in ("on", "off", "diff")}
+
+
+def _load_edited_basis(stem: str, scan: Any) -> Any:
+    """The :class:`~specproc.edited.basis.EditedBasis` saved by the batch parent, with the
+    scan's editing pulses (the same conditions that keyed it)."""
+    from specproc.basis import BasisSet
+    from specproc.edited.basis import EditedBasis
+    from specproc.edited.conditions import edit_conditions
+
+    parts = _BASIS_CACHE.get(stem)
+    if parts is None:
+        if len(_BASIS_CACHE) > 8:
+            _BASIS_CACHE.clear()
+        parts = {k: BasisSet.load(p) for k, p in edited_basis_paths(stem).items()}
+        _BASIS_CACHE[stem] = parts
+    conditions = edit_conditions(scan)
+    return EditedBasis(on=parts["on"], off=parts["off"], diff=parts["diff"],
+                       edit_on=conditions.on, edit_off=conditions.off)
+
+
 def apply_overrides(scan: Any, overrides: Mapping[str, Any]) -> Any:
     """The Scan with manifest or option overrides (``te_s``, ``tm_s``, ``tr_s``, ``sequence``).
 
@@ -225,6 +248,23 @@ def summarise_fit_json(document: Mapping[str, Any]) -> dict[str, Any]:
     from specproc.report.messages import fit_flag_sentence
 
     collapsed = [f for f in fit.get("flags") or [] if str(f).startswith("collapsed:")]
+    metabolites = _metabolite_rows(list(fit.get("table") or []), quant)
+    edited = document.get("edited")
+    if isinstance(edited, Mapping):  # J-difference edited scan: GABA+ and the edited QC
+        from specproc.report.edited import EDITED_QC_FIELDS, edited_members
+
+        edited_qc = edited.get("qc") or {}
+        for k in EDITED_QC_FIELDS:
+            numbers[k] = _num(edited_qc.get(k))
+        if numbers.get("pairs_rejected") is not None:
+            numbers["pairs_rejected"] = int(numbers["pairs_rejected"])
+        keys = [str(k) for k in edited.get("flag_keys") or []]
+        flags += [f"edited:{k}" for k in keys]
+        members = edited_members(edited.get("values") or {}, flagged=bool(keys))
+        metabolites += [{**{k: _num(v) if isinstance(v, float) else v
+                            for k, v in m.items()},
+                         "ratio_water": None, "conc_molal_mmol_kg": None,
+                         "conc_molal_sd_mmol_kg": None} for m in members]
     return {
         "status": "failed" if collapsed else "flagged" if flags else "ok",
         "reason": fit_flag_sentence(str(collapsed[0]))
@@ -232,7 +272,9 @@ def summarise_fit_json(document: Mapping[str, Any]) -> dict[str, Any]:
         "qc": numbers,
         "flags": flags,
         "statement": str(quant.get("statement") or ""),
-        "metabolites": _metabolite_rows(list(fit.get("table") or []), quant),
+        "metabolites": metabolites,
+        "edited_flags": [str(f) for f in (edited or {}).get("flags") or []]
+        if isinstance(edited, Mapping) else [],
         "spectrum": {k: (document.get("spectrum") or {}).get(k) for k in ("ppm", "fit")}
         if isinstance(document.get("spectrum"), Mapping) else None,
         "tissue": _tissue_summary(document.get("tissue")),
@@ -262,8 +304,9 @@ def process_one(task: Mapping[str, Any]) -> dict[str, Any]:
 
     folder = Path(task["out_dir"])
     folder.mkdir(parents=True, exist_ok=True)
-    basis = _load_basis(task["basis_path"])
     scan = apply_overrides(load(task["scan_path"]), task.get("overrides") or {})
+    basis = (_load_edited_basis(task["basis_path"], scan) if task.get("edited")
+             else _load_basis(task["basis_path"]))
     water = load(task["water_path"]) if task.get("water_path") else None
     tissue = task.get("tissue")
     if task.get("tissue_maps"):

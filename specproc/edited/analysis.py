@@ -44,7 +44,11 @@ from specproc.errors import InvalidInputError
 __all__ = [
     "ALPHA_GM_WM",
     "DIFF_RANGE_PPM",
+    "FIT_ERROR_LIMIT_PERCENT",
+    "SUBTRACTION_LIMIT_PERCENT",
     "EditedResult",
+    "edited_flag_keys",
+    "edited_flag_sentence",
     "fit_difference",
     "gaba_plus",
     "non_edited_residue",
@@ -57,6 +61,9 @@ ALPHA_GM_WM = 0.5
 #: Edited-QC rule of thumb: a fit error above this (per cent) marks the GABA+ value
 #: (common practice).
 FIT_ERROR_LIMIT_PERCENT = 15.0
+#: Edited-QC rule of thumb: choline left in DIFF above this share (per cent) of its OFF size
+#: marks a subtraction artefact (common practice).
+SUBTRACTION_LIMIT_PERCENT = 10.0
 
 
 @dataclass(frozen=True)
@@ -81,6 +88,8 @@ class EditedResult:
         Edited QC flags in words.
     notes : tuple of str
         Assumptions made.
+    flag_keys : tuple of str
+        Keys of ``flags`` (:func:`edited_flag_keys`, and ``no_tcr``), for tables.
     """
 
     spectra: EditedSpectra
@@ -90,6 +99,7 @@ class EditedResult:
     qc: dict[str, float]
     flags: tuple[str, ...] = ()
     notes: tuple[str, ...] = field(default_factory=tuple)
+    flag_keys: tuple[str, ...] = ()
 
     def summary_text(self) -> str:
         """One line for the terminal: GABA+/tCr with its bound, and mM when computed."""
@@ -106,6 +116,7 @@ class EditedResult:
     def to_dict(self) -> dict[str, Any]:
         """Plain values for fit.json (no arrays)."""
         return {"values": dict(self.values), "qc": dict(self.qc), "flags": list(self.flags),
+                "flag_keys": list(self.flag_keys),
                 "notes": list(self.notes), "preprocessing": self.spectra.describe(),
                 "basis": self.basis.describe(),
                 "diff_fit": {"names": list(self.diff_fit.names),
@@ -303,7 +314,7 @@ def summarise_edited(
         glx = amps.get("Glu", 0.0) + amps.get("Gln", 0.0)
         values["Glx_diff/tCr"] = glx / tcr
     else:
-        flags.append("creatine was not found in the OFF spectrum: no GABA+/tCr")
+        flags.append(edited_flag_sentence("no_tcr", {}))
     if (tcr_mm is not None and np.isfinite(tcr_mm) and tcr > 0 and te_s and tr_s
             and cr_t1_t2_s is not None and gaba_t1_t2_s is not None):
         (t1_cr, t2_cr), (t1_g, t2_g) = cr_t1_t2_s, gaba_t1_t2_s
@@ -327,16 +338,41 @@ def summarise_edited(
         g = _window_integral(basis.diff, "GABA", 2.8, 3.2)
         qc["non_edited_residue_percent"] = float(
             100 * np.real(res_scan.spectrum()[band]).sum() / (gp * g))
-    if np.isfinite(qc["diff_fit_error_percent"]) and (
-            qc["diff_fit_error_percent"] > FIT_ERROR_LIMIT_PERCENT):
-        flags.append(f"the DIFF fit leaves {qc['diff_fit_error_percent']:.0f} % of the GABA+ "
-                     f"peak height as residual (over {FIT_ERROR_LIMIT_PERCENT:g} %)")
-    if np.isfinite(qc["subtraction_artefact_3p2_percent"]) and (
-            qc["subtraction_artefact_3p2_percent"] > 10):
-        flags.append(f"choline at 3.2 ppm is left in the difference at "
-                     f"{qc['subtraction_artefact_3p2_percent']:.0f} % of its OFF size "
-                     "(subtraction artefact: motion or drift between ON and OFF)")
-    if gp <= 0:
-        flags.append("no GABA+ signal was found in the difference spectrum")
+    keys = edited_flag_keys(qc, gp)
+    flags += [edited_flag_sentence(k, qc) for k in keys]
     return EditedResult(spectra=spectra, basis=basis, diff_fit=diff_fit, values=values, qc=qc,
-                        flags=tuple(flags), notes=(*spectra.notes, *notes))
+                        flags=tuple(flags), notes=(*spectra.notes, *notes),
+                        flag_keys=(*(("no_tcr",) if tcr <= 0 else ()), *keys))
+
+
+def edited_flag_keys(qc: Mapping[str, float], gaba_plus_value: float) -> tuple[str, ...]:
+    """Keys of the edited QC flags raised by the measures ``qc`` (:func:`edited_qc`):
+    ``diff_fit_error`` (above :data:`FIT_ERROR_LIMIT_PERCENT`), ``subtraction_artefact``
+    (above :data:`SUBTRACTION_LIMIT_PERCENT`) and ``no_gaba_plus`` (GABA+ not above zero)."""
+    keys = []
+    error = qc.get("diff_fit_error_percent", float("nan"))
+    if np.isfinite(error) and error > FIT_ERROR_LIMIT_PERCENT:
+        keys.append("diff_fit_error")
+    artefact = qc.get("subtraction_artefact_3p2_percent", float("nan"))
+    if np.isfinite(artefact) and artefact > SUBTRACTION_LIMIT_PERCENT:
+        keys.append("subtraction_artefact")
+    if not gaba_plus_value > 0:
+        keys.append("no_gaba_plus")
+    return tuple(keys)
+
+
+def edited_flag_sentence(key: str, qc: Mapping[str, float]) -> str:
+    """The words of an edited QC flag key (:func:`edited_flag_keys`)."""
+    if key == "diff_fit_error":
+        return (f"the DIFF fit leaves {qc['diff_fit_error_percent']:.0f} % of the GABA+ "
+                f"peak height as residual (over {FIT_ERROR_LIMIT_PERCENT:g} %)")
+    if key == "subtraction_artefact":
+        return (f"choline at 3.2 ppm is left in the difference at "
+                f"{qc['subtraction_artefact_3p2_percent']:.0f} % of its OFF size "
+                f"(over {SUBTRACTION_LIMIT_PERCENT:g} %; subtraction artefact: motion or drift "
+                "between ON and OFF)")
+    if key == "no_gaba_plus":
+        return "no GABA+ signal was found in the difference spectrum"
+    if key == "no_tcr":
+        return "creatine was not found in the OFF spectrum: no GABA+/tCr"
+    return key

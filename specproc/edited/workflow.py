@@ -21,10 +21,11 @@ from specproc.edited.conditions import edit_conditions
 from specproc.edited.preprocess import preprocess_edited
 from specproc.errors import InvalidInputError
 
-__all__ = ["analyse_edited_scan", "edited_protocol"]
+__all__ = ["analyse_edited_scan", "edited_basis_key", "edited_protocol", "simulate_for_protocol"]
 
 
-def edited_protocol(scan: Any, config: Mapping[str, Any] | None) -> Any:
+def edited_protocol(scan: Any, config: Mapping[str, Any] | None, *,
+                    manifest: Mapping[str, Any] | None = None) -> Any:
     """The PRESS protocol of a MEGA-PRESS scan (sub-timings resolved as for any scan).
 
     The header of an edited scan often names the sequence "MEGA-PRESS", which is not a plain
@@ -38,7 +39,31 @@ def edited_protocol(scan: Any, config: Mapping[str, Any] | None) -> Any:
         raise InvalidInputError(
             f"edited data acquired with {name or scan.sequence!r}: specproc simulates editing "
             "in PRESS localisation only (MEGA-PRESS)", scan.source)
-    return resolve_protocol(scan, sequence="press", config=config, macromolecules=False)
+    return resolve_protocol(scan, sequence="press", manifest=manifest, config=config,
+                            macromolecules=False)
+
+
+def edited_basis_key(protocol: Any, conditions: Any) -> str:
+    """Short content hash of an edited protocol: the PRESS protocol's key
+    (:meth:`specproc.protocol.Protocol.key`: timings, versions, definitions) and both editing
+    pulses. Equal keys simulate equal ON, OFF and DIFF bases."""
+    from specproc._hash import json_sha256
+
+    return json_sha256({"protocol": protocol.key(), "edit_on": conditions.on.describe(),
+                        "edit_off": conditions.off.describe()})[:20]
+
+
+def simulate_for_protocol(protocol: Any, conditions: Any, *, dwell_s: float | None = None,
+                          n_points: int | None = None) -> EditedBasis:
+    """The ON, OFF and DIFF bases of a PRESS protocol with the scan's editing pulses (cached).
+
+    ``dwell_s`` and ``n_points`` default to the protocol's (those of the raw scan).
+    """
+    return simulate_edited_basis(
+        field_t=protocol.field_t, te_s=protocol.te_s, te1_s=protocol.te1_s,
+        dwell_s=protocol.dwell_s if dwell_s is None else dwell_s,
+        n_points=protocol.n_points if n_points is None else n_points,
+        centre_ppm=protocol.centre_ppm, edit_on=conditions.on, edit_off=conditions.off)
 
 
 def analyse_edited_scan(
@@ -70,10 +95,8 @@ def analyse_edited_scan(
         protocol = edited_protocol(scan, cfg)
     spectra = preprocess_edited(scan, water=water, config=cfg, conditions=conditions)
     if basis is None:
-        basis = simulate_edited_basis(
-            field_t=protocol.field_t, te_s=protocol.te_s, te1_s=protocol.te1_s,
-            dwell_s=spectra.off.dwell_s, n_points=spectra.off.n_points,
-            centre_ppm=protocol.centre_ppm, edit_on=conditions.on, edit_off=conditions.off)
+        basis = simulate_for_protocol(protocol, conditions, dwell_s=spectra.off.dwell_s,
+                                      n_points=spectra.off.n_points)
     # the OFF sub-spectrum through the ordinary analysis, from its raw transients with the
     # settings that made spectra.off (so its QC and figures show the real preprocessing)
     off_input = spectra.off_input if spectra.off_input is not None else spectra.off

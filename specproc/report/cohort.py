@@ -10,7 +10,8 @@ Exclusion rules (stated on the page): a failed scan has no values; a flagged sca
 flag, or a fit that did not converge) is left out of the summaries when
 ``[qc] exclude_flagged`` is true; a value whose CRLB is undefined or above
 ``[qc] crlb_percent_max`` is left out. Macromolecule and lipid components are not summarised
-(no molar unit).
+(no molar unit). The edited members of J-difference edited scans (``GABA+``, ``GABA+_alpha``)
+are summarised like the metabolites; an edited QC flag (``edited:<key>``) flags the scan.
 
 Plots are inline SVG drawn by the template, so that every point carries a ``<title>`` naming its
 scan (shown on hover by every browser, no script).
@@ -43,7 +44,7 @@ _SUMS_FIRST = ("tNAA", "tCr", "tCho", "Glx")
 #: Metabolites of the main tables and plots (after the sums); the other members are in a
 #: folded table below them (common practice: the metabolites reliably measured at 3 T).
 PRINCIPAL: tuple[str, ...] = ("NAA", "NAAG", "Cr", "PCr", "GPC", "PCh", "mI", "Glu", "Gln",
-                              "GABA", "GSH", "Lac")
+                              "GABA", "GSH", "Lac", "GABA+")
 #: Display spectra of all scans are averaged on this many points.
 _GRID_POINTS = 400
 
@@ -161,11 +162,13 @@ class CohortPage:
                                    "reasons": [str(summary.get("reason") or "no reason given")]})
             return
         if flags:
+            # edited QC flags (edited:<key>) come with their own words in the summary
+            plain = [f for f in flags if not f.startswith("edited:")]
+            reasons = sentences(plain, qc=qc, thresholds=self.thresholds.to_dict())
+            reasons += [f"Edited spectroscopy: {s}." for s in summary.get("edited_flags") or []]
             self.attention.append({"key": key, "status": status + (", phantom" if phantom
                                                                    else ""),
-                                   "href": href or "",
-                                   "reasons": sentences(flags, qc=qc,
-                                                        thresholds=self.thresholds.to_dict())})
+                                   "href": href or "", "reasons": reasons})
         if phantom:
             self.n_phantoms += 1
             return
@@ -211,7 +214,8 @@ class CohortPage:
     # ------------------------------------------------------------------ summaries
     def _names(self) -> list[str]:
         """Members summarised: sums first (tNAA, tCr, tCho, Glx), then metabolites A-Z."""
-        names = [n for n, m in self.members.items() if m.kind in CONCENTRATION_KINDS]
+        names = [n for n, m in self.members.items()
+                 if m.kind in CONCENTRATION_KINDS or m.kind == "edited"]
         return sorted(names, key=lambda n: (n not in _SUMS_FIRST,
                                             _SUMS_FIRST.index(n) if n in _SUMS_FIRST else 0,
                                             n.lower()))
@@ -294,6 +298,11 @@ class CohortPage:
              "A value whose CRLB is undefined is left out (no CRLB limit is set)."),
             "Macromolecule and lipid components are not summarised (no molar unit).",
         ]
+        if any(m.kind == "edited" for m in self.members.values()):
+            rules.append("GABA+ is measured in the difference spectrum of edited scans "
+                         "(GABA-equivalent units, with the co-edited macromolecules); "
+                         "GABA+_alpha is its water-referenced value with the alpha correction "
+                         "for tissue composition. Its error bound is that of the DIFF fit.")
         if self.n_phantoms:
             rules.append(f"{self.n_phantoms} phantom scan(s) (manifest kind 'phantom') are "
                          "listed below but not summarised with the others.")

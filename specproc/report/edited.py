@@ -6,34 +6,68 @@ ON spectra overlaid; the DIFF spectrum with its fit (GABA+ and Glx); and the DIF
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from typing import Any
 
 import numpy as np
 
 from specproc.report import palette
 
-__all__ = ["edited_rows", "plot_edited"]
+__all__ = ["EDITED_QC_FIELDS", "edited_members", "edited_rows", "plot_edited"]
+
+#: Edited QC measures of the tables (keys of ``EditedResult.qc``), in this order.
+EDITED_QC_FIELDS: tuple[str, ...] = (
+    "diff_fit_error_percent", "subtraction_artefact_3p2_percent", "pairs_rejected",
+)
+
+
+def edited_members(values: Mapping[str, Any], *, flagged: bool) -> list[dict[str, Any]]:
+    """The edited members of a scan's tables (kind ``edited``), from ``EditedResult.values``
+    (or the ``values`` of fit.json's ``edited`` block).
+
+    ``GABA+``: amplitude and CRLB (GABA-equivalent units), GABA+/tCr with its bound and the
+    water-referenced mM; ``GABA+_alpha``: the alpha-corrected mM (only with tissue fractions).
+    The bound of an mM value is the relative bound of GABA+/tCr (the water reference adds
+    little). ``flagged`` (an edited QC flag was raised) sets ``fit_flag`` to ``edited_qc``.
+    """
+    nan = float("nan")
+
+    def num(key: str) -> float:
+        try:
+            return float(values.get(key, nan))
+        except (TypeError, ValueError):
+            return nan
+
+    gp, gp_sd = num("GABA+"), num("GABA+_sd")
+    ratio, ratio_sd = num("GABA+/tCr"), num("GABA+/tCr_sd")
+    rel = ratio_sd / ratio if ratio > 0 else nan
+    flag = "edited_qc" if flagged else ""
+    crlb = 100 * gp_sd / gp if gp > 0 else nan
+    rows = [{"metabolite": "GABA+", "kind": "edited", "amplitude": gp, "crlb_sd": gp_sd,
+             "crlb_percent": crlb, "ratio_tcr": ratio, "ratio_tcr_sd": ratio_sd,
+             "conc_molar_mm": num("GABA+_mM"), "conc_molar_sd_mm": num("GABA+_mM") * rel,
+             "fit_flag": flag}]
+    if "GABA+_mM_alpha" in values:
+        rows.append({"metabolite": "GABA+_alpha", "kind": "edited", "amplitude": nan,
+                     "crlb_sd": nan, "crlb_percent": crlb, "ratio_tcr": nan,
+                     "ratio_tcr_sd": nan, "conc_molar_mm": num("GABA+_mM_alpha"),
+                     "conc_molar_sd_mm": num("GABA+_mM_alpha") * rel, "fit_flag": flag})
+    return rows
 
 
 def edited_rows(edited: Any, *, scan_label: str, base: dict[str, Any]) -> list[dict[str, Any]]:
-    """``results.tsv`` rows of the edited values (kind ``edited``), in its columns.
+    """``results.tsv`` rows of the edited values (:func:`edited_members`), in its columns.
 
     ``base`` is a row of the scan (for the scan-level QC columns).
     """
     nan = float("nan")
-    v = edited.values
-    gp, gp_sd = v.get("GABA+", nan), v.get("GABA+_sd", nan)
-    row = {k: base.get(k, "") for k in base}
-    row.update({
-        "scan": scan_label, "metabolite": "GABA+", "kind": "edited",
-        "amplitude": gp, "crlb_sd": gp_sd,
-        "crlb_percent": 100 * gp_sd / gp if gp > 0 else nan,
-        "ratio_tcr": v.get("GABA+/tCr", nan), "ratio_tcr_sd": v.get("GABA+/tCr_sd", nan),
-        "conc_molar_mm": v.get("GABA+_mM", nan), "conc_molar_sd_mm": nan,
-        "conc_molal_mmol_kg": nan, "conc_molal_sd_mmol_kg": nan,
-        "fit_flag": "edited_qc" if edited.flags else "",
-    })
-    return [row]
+    rows = []
+    for member in edited_members(edited.values, flagged=bool(edited.flags)):
+        row = {k: base.get(k, "") for k in base}
+        row.update({"scan": scan_label, "conc_molal_mmol_kg": nan,
+                    "conc_molal_sd_mmol_kg": nan, **member})
+        rows.append(row)
+    return rows
 
 
 def plot_edited(edited: Any, *, title: str = "") -> Any:

@@ -1,0 +1,73 @@
+"""Edited scans in a cohort run: ``specproc batch`` with an edited and a plain scan.
+
+Outside check: GABA+/tCr in ``cohort.tsv`` against the truth of the independent generator
+(``benchmarks/edited_scans.py``: its own line shapes, T2, macromolecules and drift); the rest
+checks the batch's own bookkeeping (the edited protocol's three bases, its QC columns, resume).
+"""
+
+from __future__ import annotations
+
+import csv
+import sys
+from pathlib import Path
+
+import pytest
+from click.testing import CliRunner
+
+from specproc.basis import simulate_basis
+from specproc.cli import main
+from specproc.io import save
+from specproc.synthetic import synthetic_scan
+
+sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "benchmarks"))
+
+from edited_scans import make_edited_scan
+
+
+def _rows(path: Path) -> list[dict[str, str]]:
+    with open(path, encoding="utf-8", newline="") as handle:
+        return list(csv.DictReader(handle, delimiter="\t"))
+
+
+@pytest.mark.slow
+def test_batch_with_an_edited_and_a_plain_scan(tmp_path: Path) -> None:
+    edited = make_edited_scan(21, n_pairs=48, snr=400.0)
+    save(edited.scan.replace(source=None), tmp_path / "e_svs.nii.gz")
+    save(edited.water.replace(source=None), tmp_path / "e_ref.nii.gz")
+    small = simulate_basis(sequence="press", field_t=3.0, te_s=0.08, dwell_s=5e-4,
+                           n_points=1024, metabolites=["NAA", "Cr", "GPC"])
+    save(synthetic_scan(small, {"NAA": 10.0, "Cr": 8.0, "GPC": 2.0}, noise_sd=0.05),
+         tmp_path / "p_svs.nii.gz")
+    manifest = tmp_path / "m.tsv"
+    manifest.write_text("scan\twater\tscan_id\tgm\twm\tcsf\n"
+                        "e_svs.nii.gz\te_ref.nii.gz\tedited\t0.6\t0.3\t0.1\n"
+                        "p_svs.nii.gz\t\tplain\t\t\t\n", "utf-8")
+    out = tmp_path / "out"
+    result = CliRunner().invoke(main, ["batch", str(manifest), "-o", str(out)],
+                                catch_exceptions=False)
+    assert result.exit_code == 0, result.output
+    assert "0 failed" in result.output
+    # one plain basis and the edited protocol's ON/OFF/DIFF bases, keyed apart
+    names = sorted(p.name for p in (out / "basis").iterdir())
+    assert len(names) == 4 and sum(n.endswith(("-on.npz", "-off.npz", "-diff.npz"))
+                                   for n in names) == 3, names
+    qc = {r["scan_id"]: r for r in _rows(out / "cohort_qc.tsv")}
+    for column in ("diff_fit_error_percent", "subtraction_artefact_3p2_percent"):
+        assert float(qc["edited"][column]) >= 0 and qc["plain"][column] == "n/a"
+    assert int(qc["edited"]["pairs_rejected"]) >= 1  # the generator's motion-corrupted pair
+    assert qc["plain"]["pairs_rejected"] == "n/a"
+    rows = _rows(out / "cohort.tsv")
+    gaba = {r["metabolite"]: r for r in rows if r["scan_id"] == "edited"
+            and r["kind"] == "edited"}
+    assert set(gaba) == {"GABA+", "GABA+_alpha"}
+    # same tolerance as the single-scan check of test_edited.py (model mismatch at high SNR)
+    assert abs(float(gaba["GABA+"]["ratio_tcr"]) / edited.truth["GABA+/tCr"] - 1) < 0.15
+    assert float(gaba["GABA+"]["ratio_tcr_sd"]) > 0
+    mm, alpha = float(gaba["GABA+"]["conc_molar_mm"]), float(gaba["GABA+_alpha"]["conc_molar_mm"])
+    # alpha correction (Harris et al. 2015): c / (f_GM + 0.5 f_WM) over GM+WM = 0.667/0.9 ...
+    assert alpha == pytest.approx(mm / (0.6 / 0.9 + 0.5 * 0.3 / 0.9), rel=1e-4)
+    assert not [r for r in rows if r["scan_id"] == "plain" and r["kind"] == "edited"]
+    assert "GABA+" in (out / "cohort.html").read_text("utf-8")
+    again = CliRunner().invoke(main, ["batch", str(manifest), "-o", str(out)],
+                               catch_exceptions=False)
+    assert again.exit_code == 0 and "2 already done" in again.output, again.output
