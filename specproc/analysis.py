@@ -72,7 +72,8 @@ __all__ = [
 ]
 
 #: Output file names of a folder with all outputs, by role (``voxel.png`` only when the
-#: tissue fractions came from a segmentation with its anatomical image).
+#: tissue fractions came from a segmentation with its anatomical image, ``edited.png`` only
+#: for an edited scan).
 OUTPUT_FILES: Mapping[str, str] = {
     "results": "results.tsv",
     "json": "fit.json",

@@ -68,8 +68,10 @@ def test_fit_raw_scan_writes_the_scan_folder(files, tmp_path):
     res = CliRunner().invoke(main, ["fit", str(files / "raw.nii.gz"), "--basis",
                                     str(files / "basis.npz"), "-o", str(out)])
     assert res.exit_code == 0, res.output
-    # voxel.png only with the subject's anatomy (tests/test_tissue_fit.py)
-    expected = [name for role, name in OUTPUT_FILES.items() if role != "voxel_png"]
+    # voxel.png only with the subject's anatomy (tests/test_tissue_fit.py), edited.png only
+    # for an edited scan
+    expected = [name for role, name in OUTPUT_FILES.items()
+                if role not in ("voxel_png", "edited_png")]
     assert sorted(p.name for p in out.iterdir()) == sorted(expected)
     lines = (out / "results.tsv").read_text().splitlines()
     assert lines[0] == "\t".join(RESULT_COLUMNS)
