@@ -100,6 +100,7 @@ def write_dicom_mrs(
     te_ms: float | None = 30.0,
     tr_ms: float | None = 2000.0,
     per_frame_te_ms: list[float] | None = None,
+    frame_labels: list[str | None] | None = None,
     rows: int = 1,
     columns: int = 1,
     domain: str = "TIME",
@@ -112,7 +113,8 @@ def write_dicom_mrs(
     """A DICOM MR Spectroscopy Storage file built with pydicom (DICOM PS3.3 attributes).
 
     ``frames`` has shape (n_frames, n_points), complex, stored as interleaved real/imaginary
-    float32 exactly as given (no conjugation here).
+    float32 exactly as given (no conjugation here). ``frame_labels`` gives each frame a Frame
+    Label (0020,9453) in its Frame Content Sequence (0020,9111) (``None``: no label).
     """
     from pydicom.dataset import Dataset, FileMetaDataset
     from pydicom.uid import ExplicitVRLittleEndian, MRSpectroscopyStorage, generate_uid
@@ -155,13 +157,17 @@ def write_dicom_mrs(
         timing.RepetitionTime = tr_ms
         shared.MRTimingAndRelatedParametersSequence = [timing]
     ds.SharedFunctionalGroupsSequence = [shared]
-    if per_frame_te_ms is not None:
-        groups = []
-        for value in per_frame_te_ms:
-            group, echo = Dataset(), Dataset()
+    if per_frame_te_ms is not None or frame_labels is not None:
+        groups = [Dataset() for _ in range(frames.shape[0])]
+        for group, value in zip(groups, per_frame_te_ms or [], strict=False):
+            echo = Dataset()
             echo.EffectiveEchoTime = value
             group.MREchoSequence = [echo]
-            groups.append(group)
+        for group, label in zip(groups, frame_labels or [], strict=False):
+            content = Dataset()
+            if label is not None:
+                content.FrameLabel = label
+            group.FrameContentSequence = [content]
         ds.PerFrameFunctionalGroupsSequence = groups
     if data_bytes is None:
         pairs = np.stack([frames.real, frames.imag], axis=-1)

@@ -124,3 +124,52 @@ def test_nan_samples_and_truncated_file(tmp_path):
     (tmp_path / "cut.dcm").write_bytes(good[: len(good) // 2])
     with pytest.raises(InvalidInputError, match=r"cut\.dcm"):
         load(tmp_path / "cut.dcm")
+
+
+# ------------------------------------------------------------------ edited frames
+# DICOM PS3.3 has no editing attribute for spectroscopy frames; specproc's convention is the
+# standard Frame Label (0020,9453) of each frame's Frame Content Sequence (0020,9111): ON/OFF.
+def test_edit_state_from_frame_labels(tmp_path):
+    frames = _frames(6)
+    labels = ["OFF", "on", "EDIT_OFF", "ON", "off", "edit_on"]  # interleaved, any spelling
+    path = write_dicom_mrs(tmp_path / "mega.dcm", frames, sequence="MEGA-PRESS",
+                           frame_labels=labels)
+    scan = load(path)
+    assert scan.dims == ("DIM_EDIT", "DIM_DYN") and scan.data.shape == (2, 3, 512)
+    np.testing.assert_allclose(scan.data[0], np.conj(frames[[1, 3, 5]]))  # ON, file order
+    np.testing.assert_allclose(scan.data[1], np.conj(frames[[0, 2, 4]]))
+    from specproc.edited.conditions import edit_conditions
+
+    conditions = edit_conditions(scan)
+    assert (conditions.on_index, conditions.off_index) == (0, 1)
+    assert any("assumed" in note for note in conditions.notes)  # offsets not in DICOM
+    # the conversion to NIfTI-MRS keeps the edit axis and its EditCondition
+    from specproc.io import save
+
+    save(scan.replace(source=None), tmp_path / "mega.nii.gz")
+    again = load(tmp_path / "mega.nii.gz")
+    assert again.dims == scan.dims
+    assert again.dim_headers["DIM_EDIT"]["header"]["EditCondition"] == ["ON", "OFF"]
+
+
+@pytest.mark.parametrize(
+    ("labels", "sequence", "match"),
+    [
+        (["ON", "OFF", "ON", None], "svs_press", "1 frame.s. without a Frame Label"),
+        (["ON", "OFF", "A", "B"], "svs_press", "other than ON/OFF .'A', 'B'."),
+        (["ON", "OFF", "ON", "ON"], "svs_press", "3 ON and 1 OFF frames"),
+        (None, "MEGA-PRESS", "do not say which are ON"),
+        (["ON", "OFF", "ON", "OFF"], "MEGA-sLASER", "PRESS localisation only"),
+    ],
+)
+def test_edit_state_that_cannot_be_told_is_refused(tmp_path, labels, sequence, match):
+    path = write_dicom_mrs(tmp_path / "bad.dcm", _frames(4), sequence=sequence,
+                           frame_labels=labels)
+    with pytest.raises(InvalidInputError, match=match) as info:
+        load(path)
+    assert info.value.path == str(path)
+
+
+def test_unlabelled_frames_of_a_plain_sequence_stay_transients(tmp_path):
+    path = write_dicom_mrs(tmp_path / "plain.dcm", _frames(4), frame_labels=[None] * 4)
+    assert load(path).dims == ("DIM_DYN",)

@@ -29,7 +29,8 @@ import numpy as np
 from specproc.errors import InvalidInputError
 from specproc.spins.editing import EditPulse
 
-__all__ = ["DEFAULT_OFF_PPM", "DEFAULT_ON_PPM", "EditConditions", "edit_conditions", "is_edited"]
+__all__ = ["DEFAULT_OFF_PPM", "DEFAULT_ON_PPM", "EditConditions", "condition_of",
+           "edit_conditions", "is_edited"]
 
 #: GABA editing at 1.9 ppm and the OFF pulse mirrored about water (common practice).
 DEFAULT_ON_PPM = 1.9
@@ -75,7 +76,9 @@ def is_edited(scan: Any) -> bool:
     return "DIM_EDIT" in tuple(getattr(scan, "dims", ()))
 
 
-def _condition_of(value: Any) -> str | None:
+def condition_of(value: Any) -> str | None:
+    """``"on"`` or ``"off"`` for a condition label (``ON``, ``EDIT_OFF`` ..., any case), else
+    ``None``."""
     text = str(value).strip().lower()
     if text in _ON_NAMES:
         return "on"
@@ -145,14 +148,14 @@ def edit_conditions(scan: Any, *, on_index: int | None = None,
     notes: list[str] = []
     names: list[str | None] = [None, None]
     if isinstance(labels, list | tuple) and len(labels) == 2:
-        names = [_condition_of(v) for v in labels]
+        names = [condition_of(v) for v in labels]
     if on_index is not None:
         if on_index not in (0, 1):
             raise InvalidInputError(f"the ON index must be 0 or 1, got {on_index}", where)
         names = ["on", "off"] if on_index == 0 else ["off", "on"]
     elif sorted(n or "" for n in names) != ["off", "on"]:
         keys = list(edit_pulse) if isinstance(edit_pulse, Mapping) else []
-        keyed = [_condition_of(k) for k in keys]
+        keyed = [condition_of(k) for k in keys]
         if isinstance(labels, list | tuple) and len(labels) == 2 and all(
                 _pulse_entry(edit_pulse, str(v)) is not None for v in labels):
             # conditions named freely (e.g. "A"/"B" or "GABA"/"CTRL") with their pulses given:

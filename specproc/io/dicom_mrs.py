@@ -17,6 +17,21 @@ Layout (DICOM PS3.3, MR Spectroscopy IOD, SOP Class UID 1.2.840.10008.5.1.4.1.1.
 * Sequence: Pulse Sequence Name (0018,9005) or Sequence Name (0018,0024); Protocol Name
   (0018,1030); Spectrally Selected Suppression (0018,9025) tells water suppression.
 
+Edited (J-difference, e.g. MEGA-PRESS) frames
+---------------------------------------------
+The MR Spectroscopy IOD has no attribute for the editing state of a frame (none of the
+functional groups of C.8.14 or the MR Modifier Sequence describes frequency-selective editing
+pulses; PS3.3 as read by us, from memory). specproc reads it from a standard, non-private
+attribute meant for free frame labels: **Frame Label (0020,9453) in each frame's Frame Content
+Sequence (0020,9111)** (Per-frame Functional Groups), ``ON`` or ``OFF`` (also ``EDIT_ON`` /
+``EDIT_OFF``, any case). When the frames are so labelled, the k-th ON and the k-th OFF frame (in
+file order) form the k-th pair and the Scan has ``(DIM_EDIT, DIM_DYN)`` axes with
+``EditCondition`` ``["ON", "OFF"]`` in the edit axis' dim header, as a NIfTI-MRS file would
+(the editing pulse offsets are then assumed, :mod:`specproc.edited.conditions`). Labels on only
+some frames, other labels next to ON/OFF, unequal ON and OFF counts, or a sequence named as
+edited (e.g. "MEGA-PRESS") whose frames carry no ON/OFF label are refused: the edit state
+cannot be told.
+
 Conjugation
 -----------
 DICOM describes the time-domain signal of a resonance above the transmitter frequency (higher
@@ -192,8 +207,15 @@ def read_dicom_mrs(
         fid = (pairs[..., 0] + 1j * pairs[..., 1]).astype(np.complex64)
         if conjugate:
             fid = np.conj(fid)
+        seq_text = str(ds.get("PulseSequenceName", "") or ds.get("SequenceName", "") or "")
         dims: tuple[str, ...]
-        if frames == 1:
+        dim_headers: dict[str, Any] = {}
+        edit = _edit_frames(ds, frames, seq_text, p)
+        if edit is not None:
+            on, off = edit
+            fid, dims = np.stack([fid[on], fid[off]]), ("DIM_EDIT", "DIM_DYN")
+            dim_headers = {"DIM_EDIT": {"header": {"EditCondition": ["ON", "OFF"]}}}
+        elif frames == 1:
             fid, dims = fid[0], ()
         else:
             dims = ("DIM_DYN",)
@@ -223,7 +245,6 @@ def read_dicom_mrs(
         )
         if tr_ms is None:
             tr_ms = _number(ds.get("RepetitionTime"))
-        seq_text = str(ds.get("PulseSequenceName", "") or ds.get("SequenceName", "") or "")
         protocol = str(ds.get("ProtocolName", "") or "") or None
         suppression = str(ds.get("SpectrallySelectedSuppression", "") or "").upper()
         water = None
@@ -235,6 +256,7 @@ def read_dicom_mrs(
             spectrometer_mhz=mhz,
             nucleus=nucleus,
             dims=dims,
+            dim_headers=dim_headers,
             centre_ppm=centre,
             te_s=optional_time_s(te_ms, "echo time", p, scale=1e-3),
             tr_s=optional_time_s(tr_ms, "repetition time", p, scale=1e-3),
@@ -245,6 +267,54 @@ def read_dicom_mrs(
             source=str(p),
             format="dicom",
         )
+
+
+def _frame_labels(ds: Any, frames: int) -> list[str | None]:
+    """Frame Label (0020,9453) of each frame's Frame Content Sequence (``None`` when absent)."""
+    groups = list(ds.get("PerFrameFunctionalGroupsSequence") or [])
+    labels: list[str | None] = [None] * frames
+    if len(groups) != frames:
+        return labels
+    for i, group in enumerate(groups):
+        for item in list(group.get("FrameContentSequence") or [])[:1]:
+            text = str(item.get("FrameLabel", "") or "").strip()
+            labels[i] = text or None
+    return labels
+
+
+def _edit_frames(ds: Any, frames: int, seq_text: str, p: Path
+                 ) -> tuple[list[int], list[int]] | None:
+    """Indices of the ON and the OFF frames (module notes), or ``None`` for unedited data."""
+    from specproc.edited.conditions import condition_of
+
+    labels = _frame_labels(ds, frames)
+    states = [None if label is None else condition_of(label) for label in labels]
+    named_edited = normalise_sequence_name(seq_text) is None and any(
+        tag in seq_text.lower().replace("-", "") for tag in ("mega", "edit"))
+    if not any(states):
+        if named_edited:
+            raise InvalidInputError(
+                f"edited data (sequence {seq_text!r}) whose frames do not say which are ON "
+                "and which OFF: specproc reads the edit state from each frame's Frame Label "
+                "(0020,9453) in the Frame Content Sequence, ON or OFF", p)
+        return None
+    unknown = sorted({str(lab) for lab, st in zip(labels, states, strict=True)
+                      if st is None and lab is not None})
+    missing = labels.count(None)
+    on = [i for i, st in enumerate(states) if st == "on"]
+    off = [i for i, st in enumerate(states) if st == "off"]
+    problem = (f"Frame Labels other than ON/OFF ({', '.join(repr(u) for u in unknown[:3])})"
+               if unknown else f"{missing} frame(s) without a Frame Label" if missing
+               else f"{len(on)} ON and {len(off)} OFF frames" if len(on) != len(off) else "")
+    if problem:
+        raise InvalidInputError(
+            f"the edit state of the frames cannot be told: {problem}; every frame's Frame "
+            "Label (0020,9453) must be ON or OFF, as many of each", p)
+    if "laser" in seq_text.lower():
+        raise InvalidInputError(
+            f"edited data acquired with {seq_text!r}: specproc simulates editing in PRESS "
+            "localisation only (MEGA-PRESS)", p)
+    return on, off
 
 
 def _single(values: list[Any], what: str, p: Path) -> float | None:
