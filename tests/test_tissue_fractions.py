@@ -339,3 +339,19 @@ def test_maps_on_different_grids_are_refused(tmp_path):
     with pytest.raises(InvalidInputError, match="not a probability map"):
         tissue_fractions_from_files(scan, TissueMapFiles(gm=scaled, wm=paths["wm"],
                                                          csf=paths["csf"]))
+
+
+def test_a_loaded_scan_gives_the_voxel_of_its_file_or_its_affine(tmp_path):
+    from specproc.data import Scan
+    from specproc.io import load
+    from specproc.tissue import voxel_of
+
+    affine = voxel_affine([20.0, 16.0, 12.0], [5.0, -30.0, 18.0], rotation_deg(z_deg=25.0))
+    path = write_mrs_with_affine(tmp_path / "svs.nii.gz", affine)
+    assert np.allclose(voxel_of(load(path)).affine, affine, atol=1e-5)
+    in_memory = Scan(np.ones(64, np.complex64), dwell_s=4e-4, spectrometer_mhz=123.2,
+                     affine=affine)
+    voxel = voxel_of(in_memory)
+    assert voxel.method == "Scan affine" and np.allclose(voxel.affine, affine)
+    with pytest.raises(InvalidInputError, match="no usable voxel geometry"):
+        voxel_of(Scan(np.ones(64, np.complex64), dwell_s=4e-4, spectrometer_mhz=123.2))

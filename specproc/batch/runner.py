@@ -156,7 +156,7 @@ def _prepare(entries: Sequence[ScanEntry], *, config: Mapping[str, Any], config_
                 inputs["tissue_maps_sha256"] = {
                     role: file_sha256(Path(path)) for role, path in
                     entry.tissue_maps.describe().items()
-                    if path is not None and role != "label_table"}
+                    if path is not None and (role != "label_table" or Path(path).is_file())}
             scan = apply_overrides(load(entry.scan_path), entry.overrides)
             conditions = None
             if is_edited(scan):  # its own ON, OFF and DIFF bases, keyed with the pulses

@@ -21,7 +21,7 @@ from specproc.tissue.fractions import (
     tissue_fractions_from_files,
     voxel_tissue_fractions,
 )
-from specproc.tissue.geometry import VoxelGeometry, read_voxel_geometry
+from specproc.tissue.geometry import VoxelGeometry, read_voxel_geometry, voxel_of
 
 __all__ = [
     "DEFAULT_LABEL_TABLE",
@@ -36,5 +36,6 @@ __all__ = [
     "parse_label_table",
     "read_voxel_geometry",
     "tissue_fractions_from_files",
+    "voxel_of",
     "voxel_tissue_fractions",
 ]

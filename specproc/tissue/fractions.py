@@ -604,7 +604,7 @@ class TissueMapFiles:
             ("label_table", self.label_table), ("anatomy", self.anatomy))}
 
 
-def tissue_fractions_from_files(scan: str | os.PathLike[str], files: TissueMapFiles, *,
+def tissue_fractions_from_files(scan: Any, files: TissueMapFiles, *,
                                 oversample: float = 4.0, max_unsegmented: float = 0.1,
                                 picture: bool | None = None) -> TissueFractions:
     """Voxel geometry of ``scan`` + the segmentation of ``files`` -> tissue fractions.
@@ -614,8 +614,8 @@ def tissue_fractions_from_files(scan: str | os.PathLike[str], files: TissueMapFi
 
     Parameters
     ----------
-    scan : str or path-like
-        NIfTI-MRS or DICOM MRS file.
+    scan : str, path-like or Scan
+        NIfTI-MRS or DICOM MRS file, or a loaded Scan (:func:`voxel_of`).
     files : TissueMapFiles
         The segmentation (and anatomy).
     oversample, max_unsegmented
@@ -626,9 +626,9 @@ def tissue_fractions_from_files(scan: str | os.PathLike[str], files: TissueMapFi
     """
     import dataclasses
 
-    from specproc.tissue.geometry import read_voxel_geometry
+    from specproc.tissue.geometry import voxel_of
 
-    voxel = read_voxel_geometry(scan)
+    voxel = voxel_of(scan)
     maps = load_tissue_maps(files, voxel=voxel)
     result = voxel_tissue_fractions(voxel, maps, oversample=oversample,
                                     max_unsegmented=max_unsegmented)

@@ -55,6 +55,7 @@ __all__ = [
     "read_voxel_geometry",
     "voxel_from_dicom",
     "voxel_from_nifti_header",
+    "voxel_of",
 ]
 
 #: Turns DICOM patient coordinates (LPS) into NIfTI world coordinates (RAS): x, y negated.
@@ -365,3 +366,27 @@ def read_voxel_geometry(path: str | os.PathLike[str]) -> VoxelGeometry:
             return voxel_from_dicom(ds, p)
     raise InvalidInputError(f"{fmt} files carry no voxel geometry; tissue fractions from "
                             "anatomy need a NIfTI-MRS or DICOM MRS file", Path(p))
+
+
+def voxel_of(scan: Any) -> VoxelGeometry:
+    """The voxel of a spectroscopy file (path) or of a loaded :class:`~specproc.data.Scan`.
+
+    A Scan's geometry is read again from the file it came from (``scan.source``, with every
+    check of :func:`read_voxel_geometry`); a Scan made in memory uses its ``affine``.
+
+    Raises
+    ------
+    InvalidInputError
+        No geometry: a Scan without a readable source file and without an affine (or with
+        the placeholder identity affine), or a refused geometry.
+    """
+    if isinstance(scan, str | os.PathLike):
+        return read_voxel_geometry(scan)
+    source = getattr(scan, "source", None)
+    if source is not None and Path(source).is_file():
+        return read_voxel_geometry(source)
+    affine = getattr(scan, "affine", None)
+    if affine is None or np.allclose(affine, np.eye(4)):
+        raise InvalidInputError("no usable voxel geometry: the scan has no source file and no "
+                                "voxel affine", source)
+    return VoxelGeometry(np.asarray(affine, float), method="Scan affine", source=source)
