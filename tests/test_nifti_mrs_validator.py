@@ -3,8 +3,10 @@
 The validator is ``nifti_mrs.validator`` from the PyPI package ``nifti-mrs`` (the NIfTI-MRS
 standard's Python tools; only its validator is used). Files checked: the bundled example,
 every file of the demo study, the output of ``specproc preprocess`` (scan and water), each
-file of ``specproc basis export``, and a Scan read from another format (npz) saved as
-NIfTI-MRS. Issue 17, item 12: user keys must be objects with a ``Description``.
+file of ``specproc basis export``, a Scan read from another format (npz) saved as
+NIfTI-MRS, and edited scans (``DIM_EDIT`` with ``EditCondition``, ``EditPulse``) written from
+the invented MEGA-PRESS generator and from DICOM. Issue 17, item 12: user keys must be
+objects with a ``Description``.
 """
 
 from __future__ import annotations
@@ -89,4 +91,28 @@ def test_written_files_pass_the_validator(tmp_path):
     save(load(tmp_path / "a.npz"), tmp_path / "from_npz.nii.gz")  # specproc_source_format
     written.append(tmp_path / "from_npz.nii.gz")
     for path in written:
+        validate(path)
+
+
+def test_edited_files_pass_the_validator(tmp_path):
+    """An edited scan (DIM_EDIT with EditCondition in its dim header, the EditPulse key), as
+    written from the invented MEGA-PRESS generator and from a DICOM file with ON/OFF frame
+    labels."""
+    import sys
+
+    from _io_builders import write_dicom_mrs
+
+    sys.path.insert(0, str(source_root() / "benchmarks"))
+    from edited_scans import make_edited_scan
+
+    edited = make_edited_scan(5, n_pairs=4, snr=100.0).scan
+    assert "EditPulse" in edited.header
+    save(edited.replace(source=None), tmp_path / "edited.nii.gz")
+    frames = np.exp(-np.arange(6 * 256).reshape(6, 256) / 40.0).astype(np.complex64)
+    dicom = write_dicom_mrs(tmp_path / "mega.dcm", frames, sequence="MEGA-PRESS",
+                            frame_labels=["ON", "OFF"] * 3)
+    save(load(dicom).replace(source=None), tmp_path / "from_dicom.nii.gz")
+    for path in (tmp_path / "edited.nii.gz", tmp_path / "from_dicom.nii.gz"):
+        img = nib.load(str(path))
+        assert "DIM_EDIT" in img.header.extensions[0].get_content().decode("utf-8")
         validate(path)
