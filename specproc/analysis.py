@@ -730,6 +730,7 @@ def write_scan_outputs(result: ScanResult, outdir: str | os.PathLike[str], *,
         blobs["state"] = _state_bytes(result)
         return _write_folder(out, document, notes, texts, blobs, outputs)
     from specproc.provenance import provenance_rows
+    from specproc.report.edited import edited_section
     from specproc.report.figures import figure_pdf_bytes, figure_png_bytes
     from specproc.report.fit_figure import plot_fit
     from specproc.report.html import render_report
@@ -761,7 +762,7 @@ def write_scan_outputs(result: ScanResult, outdir: str | os.PathLike[str], *,
 
         blobs["edited_png"] = figure_png_bytes(plot_edited(
             result.edited, title=f"{result.title}: edited spectra and the DIFF fit"))
-        figures.append(("Edited spectra: OFF and aligned ON; DIFF with its fit (GABA+, Glx)",
+        figures.append(("Edited spectra: OFF and ON; DIFF with its fit (GABA+, Glx)",
                         blobs["edited_png"]))
     texts["report"] = render_report(
         title=result.title, scan=result.scan, water=result.water, pre=result.preprocessing,
@@ -773,6 +774,7 @@ def write_scan_outputs(result: ScanResult, outdir: str | os.PathLike[str], *,
                "results.tsv": OUTPUT_FILES["results"], "fit.pdf": OUTPUT_FILES["figure_pdf"]},
         cfg_source=result.config_source,
         physics=provenance_rows(document["provenance"]),
+        edited=None if result.edited is None else edited_section(result.edited),
     )
     return _write_folder(out, document, notes, texts, blobs, outputs)
 

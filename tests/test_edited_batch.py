@@ -68,6 +68,20 @@ def test_batch_with_an_edited_and_a_plain_scan(tmp_path: Path) -> None:
     assert alpha == pytest.approx(mm / (0.6 / 0.9 + 0.5 * 0.3 / 0.9), rel=1e-4)
     assert not [r for r in rows if r["scan_id"] == "plain" and r["kind"] == "edited"]
     assert "GABA+" in (out / "cohort.html").read_text("utf-8")
+    # the scan report says the same in words: values with bounds, the QC with its limits
+    from specproc.edited.analysis import FIT_ERROR_LIMIT_PERCENT, SUBTRACTION_LIMIT_PERCENT
+    from specproc.report.tables import sig
+
+    report = (out / "scans" / "edited" / "report.html").read_text("utf-8")
+    start = report.index('<section id="edited">')
+    section = report[start:report.index("</section>", start)]
+    ratio = float(gaba["GABA+"]["ratio_tcr"])
+    assert f"{sig(ratio)} ± " in section and f"{sig(alpha)} ± " in section
+    assert f"≤ {FIT_ERROR_LIMIT_PERCENT:g} %" in section
+    assert f"≤ {SUBTRACTION_LIMIT_PERCENT:g} %" in section
+    assert f"{qc['edited']['pairs_rejected']} of 48" in section
+    assert "not aligned to OFF" in section  # the default: offset measured, not applied
+    assert "<li>edited: " not in report[:start]  # its notes are in the section, not twice
     again = CliRunner().invoke(main, ["batch", str(manifest), "-o", str(out)],
                                catch_exceptions=False)
     assert again.exit_code == 0 and "2 already done" in again.output, again.output

@@ -1,7 +1,11 @@
-"""Rendering of the edited part of a scan's result: table rows and the ON/OFF/DIFF figure.
+"""Rendering of the edited part of a scan's result: table rows, the report's section and the
+ON/OFF/DIFF figure.
 
-The figure has three panels on one ppm axis (decreasing to the right): the OFF and the aligned
-ON spectra overlaid; the DIFF spectrum with its fit (GABA+ and Glx); and the DIFF residual.
+The figure has three panels on one ppm axis (decreasing to the right): the OFF and the ON
+spectra overlaid (ON labelled aligned when the alignment was applied); the DIFF spectrum with
+its fit (GABA+ and Glx); and the DIFF residual. The "Edited spectroscopy" section of the scan
+report (:func:`edited_section`) gives GABA+/tCr and the mM values with their bounds, the edited
+QC with its limits, the pairs rejected and the notes (offsets assumed, alignment not applied).
 """
 
 from __future__ import annotations
@@ -13,7 +17,8 @@ import numpy as np
 
 from specproc.report import palette
 
-__all__ = ["EDITED_QC_FIELDS", "edited_members", "edited_rows", "plot_edited"]
+__all__ = ["EDITED_QC_FIELDS", "edited_members", "edited_rows", "edited_section",
+           "plot_edited"]
 
 #: Edited QC measures of the tables (keys of ``EditedResult.qc``), in this order.
 EDITED_QC_FIELDS: tuple[str, ...] = (
@@ -70,6 +75,92 @@ def edited_rows(edited: Any, *, scan_label: str, base: dict[str, Any]) -> list[d
     return rows
 
 
+def _pm(value: float, sd: float, unit: str = "") -> str:
+    from specproc.report.tables import sig
+
+    if not np.isfinite(value):
+        return "—"
+    text = f"{sig(value)} ± {sig(sd, 2)}" if np.isfinite(sd) and sd > 0 else sig(value)
+    return f"{text} {unit}".rstrip()
+
+
+def edited_section(edited: Any) -> dict[str, Any]:
+    """What the scan report's "Edited spectroscopy" section shows, as display text.
+
+    Returns
+    -------
+    dict
+        ``values``: rows (``measure``, ``value``, ``note``) of GABA+/tCr, the water-referenced
+        and alpha-corrected mM and Glx (DIFF)/tCr; ``qc``: rows (``measure``, ``value``,
+        ``rule``, ``status``) of the edited QC; ``pulses``: one sentence on the editing
+        pulses; ``flags``: the edited QC flags in words; ``notes``: what was assumed or not done.
+    """
+    from specproc.edited.analysis import FIT_ERROR_LIMIT_PERCENT, SUBTRACTION_LIMIT_PERCENT
+    from specproc.report.tables import sig
+
+    nan = float("nan")
+    v, qc = edited.values, edited.qc
+    (gaba, *alpha) = edited_members(v, flagged=bool(edited.flags))
+    values = [
+        {"measure": "GABA+/tCr", "value": _pm(gaba["ratio_tcr"], gaba["ratio_tcr_sd"]),
+         "note": "GABA-equivalent DIFF signal at 3.0 ppm (GABA and co-edited macromolecules) "
+                 "over tCr of the OFF fit"},
+        {"measure": "GABA+ (water-referenced)",
+         "value": _pm(gaba["conc_molar_mm"], gaba["conc_molar_sd_mm"], "mM"),
+         "note": "GABA+/tCr × water-referenced tCr, with GABA's relaxation; SD: the "
+                 "relative bound of GABA+/tCr"
+         if np.isfinite(gaba["conc_molar_mm"]) else
+         "not computed: needs a water reference and tissue fractions"},
+    ]
+    if alpha:
+        values.append({"measure": "GABA+ (alpha-corrected)",
+                       "value": _pm(alpha[0]["conc_molar_mm"], alpha[0]["conc_molar_sd_mm"],
+                                    "mM"),
+                       "note": "for the voxel's GM/WM composition (Harris et al. 2015)"})
+    values.append({"measure": "Glx (DIFF)/tCr", "value": _pm(v.get("Glx_diff/tCr", nan), nan),
+                   "note": "edited Glx at 3.75 ppm"})
+
+    def status(value: float, limit: float) -> str:
+        if not np.isfinite(value):
+            return "not measured"
+        return "passed" if value <= limit else "flagged"
+
+    err, art = qc.get("diff_fit_error_percent", nan), qc.get("subtraction_artefact_3p2_percent",
+                                                             nan)
+    spectra = edited.spectra
+    n_pairs = int(np.asarray(spectra.pairs_kept).size)
+    rejected = int(qc.get("pairs_rejected", 0))
+    shift, phase = qc.get("on_off_shift_hz", nan), qc.get("on_off_phase_deg", nan)
+    applied = bool(spectra.on_to_off.get("applied", 0.0))
+    rows = [
+        {"measure": "DIFF fit error", "value": f"{sig(err, 2)} %",
+         "rule": f"≤ {FIT_ERROR_LIMIT_PERCENT:g} %", "status": status(err,
+                                                                       FIT_ERROR_LIMIT_PERCENT)},
+        {"measure": "subtraction artefact at 3.2 ppm", "value": f"{sig(art, 2)} %",
+         "rule": f"≤ {SUBTRACTION_LIMIT_PERCENT:g} %",
+         "status": status(art, SUBTRACTION_LIMIT_PERCENT)},
+        {"measure": "ON/OFF pairs rejected", "value": f"{rejected} of {n_pairs}", "rule": "",
+         "status": ""},
+        {"measure": "ON relative to OFF (choline)",
+         "value": f"{sig(shift, 2)} Hz, {sig(phase, 2)}°", "rule": "",
+         "status": "corrected" if applied else "measured, not corrected"},
+    ]
+    if "non_edited_residue_percent" in qc:
+        rows.append({"measure": "non-edited residue under GABA+ (removed before the fit)",
+                     "value": f"{sig(qc['non_edited_residue_percent'], 2)} %", "rule": "",
+                     "status": ""})
+    on, off = edited.spectra.conditions.on, edited.spectra.conditions.off
+    pulses = (f"Editing pulses: ON at {on.shift_ppm:g} ppm, OFF at {off.shift_ppm:g} ppm, "
+              f"{on.duration_s * 1e3:g} ms, simulated with J evolution inside the PRESS "
+              "localisation of the scan's timings.")
+    notes = [f"{n[:1].upper()}{n[1:]}." for n in edited.notes]
+    if not applied:
+        notes.append("The ON spectrum was not aligned to OFF (the offset above was measured "
+                     "but not applied; [edited] align_subspectra = true applies it).")
+    return {"values": values, "qc": rows, "pulses": pulses,
+            "flags": [f"{f[:1].upper()}{f[1:]}." for f in edited.flags], "notes": notes}
+
+
 def plot_edited(edited: Any, *, title: str = "") -> Any:
     """Figure of the OFF, ON and DIFF spectra with the DIFF fit (matplotlib, Agg)."""
     from matplotlib.figure import Figure
@@ -83,7 +174,9 @@ def plot_edited(edited: Any, *, title: str = "") -> Any:
     off = np.real(spectra.off.spectrum())[keep]
     on = np.real(spectra.on.spectrum())[keep]
     axes[0].plot(ppm[keep], off, color=palette.DATA, lw=1.6, label="OFF")
-    axes[0].plot(ppm[keep], on, color=palette.FIT, lw=0.7, label="ON (aligned)")
+    aligned = bool(spectra.on_to_off.get("applied", 0.0))
+    axes[0].plot(ppm[keep], on, color=palette.FIT, lw=0.7,
+                 label="ON (aligned)" if aligned else "ON")
     axes[0].legend(loc="upper left", frameon=False, fontsize=8)
     axes[0].set_title(title, fontsize=10, loc="left")
     fit = edited.diff_fit

@@ -221,6 +221,7 @@ def render_report(
     cfg_source: str = "",
     generated: str | None = None,
     physics: Sequence[Mapping[str, Any]] = (),
+    edited: Mapping[str, Any] | None = None,
 ) -> str:
     """The report page of one scan as a string (see the module docstring for its rules).
 
@@ -260,6 +261,10 @@ def render_report(
         Time stamp (default: now, UTC).
     physics : sequence of mapping, optional
         Provenance of the physical values used: rows with ``quantity``, ``value``, ``source``.
+    edited : mapping, optional
+        The "Edited spectroscopy" section of a J-difference edited scan
+        (:func:`specproc.report.edited.edited_section`); the rest of the page is then the
+        analysis of its OFF spectrum.
     """
     stamp = generated or _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds")
     limit = qc.thresholds.crlb_percent_max
@@ -274,7 +279,9 @@ def render_report(
                  if not f.startswith(("at_zero_bound:", "collapsed:"))]
     not_detected = [str(r["metabolite"]) for r in rows
                     if "zero_bound" in str(r.get("fit_flag") or "")]
-    remarks = list(notes)
+    # an edited scan's own notes and flags are in its section
+    remarks = [n for n in notes if not (edited and str(n).startswith(("edited: ",
+                                                                       "edited QC: ")))]
     if not_detected:
         remarks.append("Fitted at zero (not detected): " + ", ".join(not_detected) + ".")
     if not quant.water_referenced:
@@ -293,6 +300,9 @@ def render_report(
         {"label": "NAA FWHM", "cls": "", "value": f"{sig(qc.naa_fwhm_hz)} Hz"},
         {"label": "rows above CRLB limit", "cls": "", "value": str(n_unreliable)},
     ]
+    if edited:
+        cards.append({"label": "GABA+/tCr (edited)", "cls": "bad" if edited["flags"] else "",
+                      "value": edited["values"][0]["value"]})
     legend = (
         "Amplitudes are per molecule (the basis carries the proton counts). CRLB: Cramér-Rao "
         "lower bound of the amplitude, in % of it; '—' where it is undefined. Rows whose CRLB "
@@ -340,6 +350,7 @@ def render_report(
         cfg_source=cfg_source,
         links=list((links or {}).items()),
         methods_doc=methods_doc_uri(),
+        edited=edited,
     )
 
 
