@@ -1,5 +1,6 @@
-"""The example of the README's "Python API" section runs as written (from the top folder of the
-repository, here a temporary folder holding the demo study) and does what its comments say."""
+"""The examples of the README's "Python API" section run as written (from the top folder of the
+repository, here a temporary folder holding the demo study); the first, one scan from loading to
+its folder, does what its comments say."""
 
 import re
 from pathlib import Path
@@ -9,25 +10,29 @@ import pytest
 from specproc._paths import demo_dir, source_root
 
 
-def readme_api_example() -> str:
-    """The first ``python`` code block under the README heading "Python API"."""
+def readme_api_examples() -> list[str]:
+    """The ``python`` code blocks under the README heading "Python API", in order."""
     text = (source_root() / "README.md").read_text(encoding="utf-8")
     section = re.search(r"^## Python API\n(.*?)(?=^## )", text, flags=re.S | re.M)
     assert section, "README.md has no 'Python API' section"
-    block = re.search(r"^```python\n(.*?)^```", section.group(1), flags=re.S | re.M)
-    assert block, "the 'Python API' section has no python code block"
-    return block.group(1)
+    blocks = re.findall(r"^```python\n(.*?)^```", section.group(1), flags=re.S | re.M)
+    assert blocks, "the 'Python API' section has no python code block"
+    return blocks
 
 
 @pytest.mark.slow
 def test_readme_python_api_example_runs(tmp_path, monkeypatch, capsys):
-    code = readme_api_example()
+    first, *others = readme_api_examples()
     (tmp_path / "demo_spectra").symlink_to(demo_dir(), target_is_directory=True)
     monkeypatch.chdir(tmp_path)
     monkeypatch.setenv("SPECPROC_CACHE_DIR", str(tmp_path / "cache"))
 
+    for i, code in enumerate(others, start=2):  # each further example runs on its own
+        exec(compile(code, f"README.md (Python API, example {i})", "exec"), {})
+    capsys.readouterr()
+
     namespace: dict = {"__name__": "__readme__"}
-    exec(compile(code, "README.md (Python API)", "exec"), namespace)
+    exec(compile(first, "README.md (Python API)", "exec"), namespace)
     out = capsys.readouterr().out.splitlines()
 
     result = namespace["result"]
