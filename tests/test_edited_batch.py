@@ -2,20 +2,24 @@
 
 Outside check: GABA+/tCr in ``cohort.tsv`` against the truth of the independent generator
 (``benchmarks/edited_scans.py``: its own line shapes, T2, macromolecules and drift); the rest
-checks the batch's own bookkeeping (the edited protocol's three bases, its QC columns, resume).
+checks the batch's own bookkeeping (the edited protocol's three bases, its QC columns, resume,
+the same numbers as ``specproc fit``, a scan of unknown edit meaning recorded as failed).
 """
 
 from __future__ import annotations
 
 import csv
+import json
 import sys
 from pathlib import Path
 
+import numpy as np
 import pytest
 from click.testing import CliRunner
 
 from specproc.basis import simulate_basis
 from specproc.cli import main
+from specproc.data import Scan
 from specproc.io import save
 from specproc.synthetic import synthetic_scan
 
@@ -85,3 +89,28 @@ def test_batch_with_an_edited_and_a_plain_scan(tmp_path: Path) -> None:
     again = CliRunner().invoke(main, ["batch", str(manifest), "-o", str(out)],
                                catch_exceptions=False)
     assert again.exit_code == 0 and "2 already done" in again.output, again.output
+    # one per-scan computation: specproc fit gives the batch's edited numbers exactly
+    single = tmp_path / "single"
+    result = CliRunner().invoke(main, [
+        "fit", str(tmp_path / "e_svs.nii.gz"), "--water", str(tmp_path / "e_ref.nii.gz"),
+        "--gm", "0.6", "--wm", "0.3", "--csf", "0.1", "-o", str(single)],
+        catch_exceptions=False)
+    assert result.exit_code == 0, result.output
+    by_fit = json.loads((single / "fit.json").read_text("utf-8"))["edited"]
+    by_batch = json.loads((out / "scans" / "edited" / "fit.json").read_text("utf-8"))["edited"]
+    assert by_fit["values"] == by_batch["values"] and by_fit["qc"] == by_batch["qc"]
+
+
+def test_batch_records_an_edited_scan_of_unknown_meaning_and_goes_on(tmp_path: Path) -> None:
+    data = np.ones((2, 4, 256), np.complex64)
+    unknown = Scan(data=data, dwell_s=5e-4, spectrometer_mhz=123.2,
+                   dims=("DIM_EDIT", "DIM_DYN"), te_s=0.068, tr_s=2.0)  # no EditCondition
+    save(unknown, tmp_path / "u_svs.nii.gz")
+    (tmp_path / "m.tsv").write_text("scan\tscan_id\nu_svs.nii.gz\tunknown\n", "utf-8")
+    result = CliRunner().invoke(main, ["batch", str(tmp_path / "m.tsv"), "-o",
+                                       str(tmp_path / "out")], catch_exceptions=False)
+    assert result.exit_code == 0 and "1 failed" in result.output, result.output
+    (row,) = _rows(tmp_path / "out" / "cohort_qc.tsv")
+    assert row["status"] == "failed" and "unknown meaning" in row["reason"]
+    assert not (tmp_path / "out" / "basis").exists() or not any(
+        (tmp_path / "out" / "basis").iterdir())  # nothing simulated for it

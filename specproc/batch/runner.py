@@ -158,17 +158,17 @@ def _prepare(entries: Sequence[ScanEntry], *, config: Mapping[str, Any], config_
                     entry.tissue_maps.describe().items()
                     if path is not None and (role != "label_table" or Path(path).is_file())}
             scan = apply_overrides(load(entry.scan_path), entry.overrides)
+            # the protocol as `specproc fit` resolves it (PRESS for an edited scan)
+            protocol = resolve_protocol(scan, manifest=entry.timings, config=config,
+                                        metabolites=metabolites, macromolecules=macromolecules,
+                                        phantom=entry.is_phantom)
             conditions = None
+            basis_key = protocol.key()
             if is_edited(scan):  # its own ON, OFF and DIFF bases, keyed with the pulses
                 conditions = edit_conditions(scan)
-                protocol = edited_protocol(scan, config, manifest=entry.timings)
+                if protocol.sequence != "press":
+                    edited_protocol(scan, config)  # refuses it: editing is simulated in PRESS
                 basis_key = edited_basis_key(protocol, conditions)
-            else:
-                protocol = resolve_protocol(scan, manifest=entry.timings, config=config,
-                                            metabolites=metabolites,
-                                            macromolecules=macromolecules,
-                                            phantom=entry.is_phantom)
-                basis_key = protocol.key()
             del scan
         except Exception as exc:  # recorded as a failed scan
             yield _Prepared(entry, inputs, None, failure_reason(exc))

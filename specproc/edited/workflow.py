@@ -24,8 +24,7 @@ from specproc.errors import InvalidInputError
 __all__ = ["analyse_edited_scan", "edited_basis_key", "edited_protocol", "simulate_for_protocol"]
 
 
-def edited_protocol(scan: Any, config: Mapping[str, Any] | None, *,
-                    manifest: Mapping[str, Any] | None = None) -> Any:
+def edited_protocol(scan: Any, config: Mapping[str, Any] | None) -> Any:
     """The PRESS protocol of a MEGA-PRESS scan (sub-timings resolved as for any scan).
 
     The header of an edited scan often names the sequence "MEGA-PRESS", which is not a plain
@@ -39,8 +38,7 @@ def edited_protocol(scan: Any, config: Mapping[str, Any] | None, *,
         raise InvalidInputError(
             f"edited data acquired with {name or scan.sequence!r}: specproc simulates editing "
             "in PRESS localisation only (MEGA-PRESS)", scan.source)
-    return resolve_protocol(scan, sequence="press", manifest=manifest, config=config,
-                            macromolecules=False)
+    return resolve_protocol(scan, sequence="press", config=config, macromolecules=False)
 
 
 def edited_basis_key(protocol: Any, conditions: Any) -> str:
