@@ -609,6 +609,68 @@ def add_anatomy(out_dir: Path) -> None:
     writer.writerows(rows)
     write_text(out_dir / "manifest.tsv", buffer.getvalue())
 
+#: The invented edited (MEGA-PRESS GABA) scan of the study: subject, seed, ON/OFF pairs, SNR.
+EDITED = {"subject": "sub-05", "session": "ses-01", "seed": 505, "n_pairs": 64, "snr": 400.0}
+
+
+def edited_scan(out_dir: Path) -> tuple[dict[str, Any], dict[str, Any]]:
+    """Write the edited scan and its water reference; return its manifest row and truth.
+
+    Made by the independent generator of the edited benchmark
+    (``benchmarks/edited_scans.py``: 3 T MEGA-PRESS, TE 68 ms, TE1 15 ms, ON 1.9 / OFF 7.5 ppm
+    14 ms editing pulses, own line shapes, T2, macromolecules, drift and one motion-corrupted
+    pair), rounded to integers like the other demo data.
+    """
+    import sys
+
+    sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "benchmarks"))
+    from edited_scans import TISSUE, make_edited_scan
+
+    made = make_edited_scan(EDITED["seed"], n_pairs=EDITED["n_pairs"], snr=EDITED["snr"])
+    folder = out_dir / EDITED["subject"] / EDITED["session"] / "mrs"
+    stem = f"{EDITED['subject']}_{EDITED['session']}"
+    svs = folder / f"{stem}_svs.nii.gz"
+    ref = folder / f"{stem}_mrsref.nii.gz"
+    for scan_, path_ in ((made.scan, svs), (made.water, ref)):
+        data = np.asarray(scan_.data)
+        rounded = (np.round(data.real) + 1j * np.round(data.imag)).astype(np.complex64)
+        save(scan_.replace(data=rounded, source=None), path_)
+    for scan_, path_, ref_ in ((made.scan, svs, ref), (made.water, ref, None)):
+        sidecar = _sidecar(scan_, ref_, out_dir)
+        if ref_ is not None:  # the edited acquisition itself
+            sidecar.update({"PulseSequenceType": "MEGA-PRESS",
+                            "NumberOfTransients": 2 * EDITED["n_pairs"]})
+        write_text(path_.with_name(path_.name.replace(".nii.gz", ".json")),
+                   json.dumps(sidecar, indent=1) + "\n")
+    row = {"scan": _relative(svs, out_dir), "water": _relative(ref, out_dir),
+           "subject": EDITED["subject"], "session": EDITED["session"], "kind": "volunteer",
+           **{k: TISSUE[k] for k in ("gm", "wm", "csf")}}
+    truth = {"scan": row["scan"], "water": row["water"], "edited": True,
+             "subject": EDITED["subject"], "session": EDITED["session"], "kind": "volunteer",
+             "tissue_fractions": {k: TISSUE[k] for k in ("gm", "wm", "csf")},
+             "motion_corrupted_pair": made.motion_pair,
+             **{k: float(v) for k, v in made.truth.items()}}
+    return row, truth
+
+
+def add_edited(out_dir: Path) -> None:
+    """Add (or rewrite) the edited scan of an existing study: files, manifest row, truth."""
+    row, truth = edited_scan(out_dir)
+    with open(out_dir / "manifest.tsv", encoding="utf-8", newline="") as handle:
+        rows = [r for r in csv.DictReader(handle, delimiter="\t")
+                if r.get("subject") != EDITED["subject"]]
+    rows.append({key: row.get(key, "") for key in rows[0]})
+    buffer = io.StringIO()
+    writer = csv.DictWriter(buffer, fieldnames=list(rows[0]), delimiter="\t",
+                            lineterminator="\n")
+    writer.writeheader()
+    writer.writerows(rows)
+    write_text(out_dir / "manifest.tsv", buffer.getvalue())
+    doc = json.loads((out_dir / "truth.json").read_text(encoding="utf-8"))
+    doc["edited_scans"] = [truth]
+    write_text(out_dir / "truth.json", json.dumps(doc, indent=1) + "\n")
+
+
 def make_demo(out_dir: Path) -> dict[str, Any]:
     """Write the whole study into ``out_dir`` (files are replaced atomically)."""
     rng = np.random.default_rng(SEED)
@@ -669,7 +731,8 @@ def make_demo(out_dir: Path) -> dict[str, Any]:
         "scans": scans,
     }
     write_text(out_dir / "truth.json", json.dumps(truth_doc, indent=1) + "\n")
-    return truth_doc
+    add_edited(out_dir)
+    return json.loads((out_dir / "truth.json").read_text(encoding="utf-8"))
 
 
 def main() -> None:
@@ -681,14 +744,20 @@ def main() -> None:
     parser.add_argument("--anatomy-only", action="store_true",
                         help="only (re)write the volunteers' anatomy, voxel geometry and the "
                              "manifest's map columns of an existing study")
+    parser.add_argument("--edited-only", action="store_true",
+                        help="only (re)write the edited scan of an existing study")
     args = parser.parse_args()
+    if args.edited_only:
+        add_edited(args.out)
+        print(f"wrote the edited demo scan into {args.out}")
+        return
     if args.anatomy_only:
         add_anatomy(args.out)
         print(f"wrote the demo anatomy into {args.out}")
         return
     if args.clean:
-        for spec in SUBJECTS:
-            shutil.rmtree(args.out / spec["subject"], ignore_errors=True)
+        for subject in [spec["subject"] for spec in SUBJECTS] + [EDITED["subject"]]:
+            shutil.rmtree(args.out / subject, ignore_errors=True)
     make_demo(args.out)
     total = sum(p.stat().st_size for p in args.out.rglob("*") if p.is_file())
     print(f"wrote the demo study to {args.out} ({total / 1e6:.2f} MB in total)")

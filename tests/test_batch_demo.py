@@ -25,6 +25,8 @@ DEMO = demo_dir()
 TRUTH = json.loads((DEMO / "truth.json").read_text(encoding="utf-8"))
 #: truth keyed like the cohort's scan_id (the file stem of the scan)
 SCANS = {Path(s["scan"]).name.split(".")[0]: s for s in TRUTH["scans"]}
+#: the edited (MEGA-PRESS) scan: its OFF spectrum has no signal ratios in the truth
+EDITED = {Path(s["scan"]).name.split(".")[0]: s for s in TRUTH.get("edited_scans", [])}
 TOLERANCE = 0.10
 
 
@@ -43,11 +45,13 @@ def cohort(demo_cohort) -> Path:
 
 def test_every_demo_scan_is_in_the_cohort_tables(cohort: Path) -> None:
     qc = _rows(cohort / "cohort_qc.tsv")
-    assert sorted(r["scan_id"] for r in qc) == sorted(SCANS)
+    assert sorted(r["scan_id"] for r in qc) == sorted([*SCANS, *EDITED])
     assert all(r["status"] in {"ok", "flagged"} for r in qc)
     # sub-04 was generated with a drift range above 5 Hz: it must carry that QC flag
     flagged = {r["scan_id"] for r in qc if r["status"] == "flagged"}
-    assert flagged == {"sub-04_ses-01_svs"}
+    # (the edited scan's OFF fit, of an independent generator at high SNR, may show its model
+    # mismatch in the residual-to-noise ratio; no other volunteer is flagged)
+    assert "sub-04_ses-01_svs" in flagged and flagged <= {"sub-04_ses-01_svs", *EDITED}
     html = (cohort / "cohort.html").read_text(encoding="utf-8")
     assert "not a medical device" in html
     assert "sub-04_ses-01_svs" in html  # the flagged scan is listed in the cohort report
@@ -55,7 +59,8 @@ def test_every_demo_scan_is_in_the_cohort_tables(cohort: Path) -> None:
 
 @pytest.mark.parametrize("name", ["NAA", "tCho", "mI", "Glx"])
 def test_cohort_ratios_match_the_generated_values(cohort: Path, name: str) -> None:
-    rows = [r for r in _rows(cohort / "cohort.tsv") if r["metabolite"] == name]
+    rows = [r for r in _rows(cohort / "cohort.tsv")
+            if r["metabolite"] == name and r["scan_id"] not in EDITED]
     assert sorted(r["scan_id"] for r in rows) == sorted(SCANS)
     for row in rows:
         expected = SCANS[row["scan_id"]]["signal_ratios"][name]

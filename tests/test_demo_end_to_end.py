@@ -34,6 +34,7 @@ pytestmark = pytest.mark.slow
 DEMO = demo_dir()
 TRUTH = json.loads((DEMO / "truth.json").read_text(encoding="utf-8"))
 SCANS = {f"{s['subject']}_{s['session']}": s for s in TRUTH["scans"]}
+EDITED = {f"{s['subject']}_{s['session']}": s for s in TRUTH.get("edited_scans", [])}
 VOLUNTEERS = [k for k, s in SCANS.items() if s["kind"] == "volunteer"]
 RATIOS = ("NAA", "tCho", "mI", "Glx")
 TOLERANCE = 0.10
@@ -113,11 +114,12 @@ def test_manifest_matches_files_and_truth() -> None:
     from specproc.batch import read_manifest
 
     entries = read_manifest(DEMO / "manifest.tsv")
-    assert {f"sub-{e.subject}_ses-{e.session}" for e in entries} == set(SCANS)
+    assert {f"sub-{e.subject}_ses-{e.session}" for e in entries} == set(SCANS) | set(EDITED)
     from_anatomy = 0
     for entry in entries:
         assert entry.scan_path.is_file() and entry.water_path.is_file()
-        truth = SCANS[f"sub-{entry.subject}_ses-{entry.session}"]
+        key = f"sub-{entry.subject}_ses-{entry.session}"
+        truth = SCANS.get(key) or EDITED[key]
         if entry.tissue_maps is not None:  # fractions from the volunteer's anatomy
             from specproc.tissue import tissue_fractions_from_files
 
@@ -195,7 +197,7 @@ def test_bids_sidecars_have_the_required_fields() -> None:
     from specproc.io import load
 
     sidecars = sorted(DEMO.glob("sub-*/ses-*/mrs/*.json"))
-    assert len(sidecars) == 2 * len(SCANS)
+    assert len(sidecars) == 2 * (len(SCANS) + len(EDITED))
     for path in sidecars:
         meta = json.loads(path.read_text(encoding="utf-8"))
         for key in ("ResonantNucleus", "SpectrometerFrequency", "SpectralWidth", "EchoTime"):
@@ -207,3 +209,17 @@ def test_bids_sidecars_have_the_required_fields() -> None:
             assert (DEMO / meta["ReferenceSignal"].removeprefix("bids::")).is_file()
     description = json.loads((DEMO / "dataset_description.json").read_text(encoding="utf-8"))
     assert {"Name", "BIDSVersion"} <= set(description)
+
+
+def test_edited_demo_scan_gives_gaba_plus(demo_run: tuple[str, Path]) -> None:
+    """The invented MEGA-PRESS scan of the study (independent generator of the edited
+    benchmark): GABA+/tCr within 20 % of its truth and within 3 of its own bounds."""
+    assert EDITED, "the demo study has an edited scan"
+    _, out = demo_run
+    for key, truth in EDITED.items():
+        doc = _fit_json(out, key)
+        values = doc["edited"]["values"]
+        error = values["GABA+/tCr"] - truth["GABA+/tCr"]
+        assert abs(error) / truth["GABA+/tCr"] < 0.20
+        assert abs(error) < 3 * values["GABA+/tCr_sd"]
+        assert truth["motion_corrupted_pair"] in doc["edited"]["preprocessing"]["pairs_rejected"]

@@ -285,12 +285,16 @@ def test_demo_reports_state_the_caution_and_the_basis_protocol(demo_cohort) -> N
     page carries the caution and the basis sub-timing with its source (the demo files give no
     TE1, so the symmetric PRESS assumption is stated), and its fit.json records the same."""
     scans = sorted((demo_cohort.out / "scans").iterdir())
-    assert len(scans) == 5
+    assert len(scans) == 6  # four volunteers, the edited scan and the phantom
     for folder in scans:
         page = (folder / "report.html").read_text(encoding="utf-8")
         assert "not a medical device" in page
-        assert "assumed: TE1 = TE/2" in page
         doc = json.loads((folder / "fit.json").read_text(encoding="utf-8"))
+        if doc.get("edited"):  # the MEGA-PRESS scan's header gives its TE1 (15 ms)
+            assert "TE1 15 ms, TE2 53 ms (header)" in page
+            assert doc["protocol"]["timing_sources"] == {"te1_s": "header"}
+            continue
+        assert "assumed: TE1 = TE/2" in page
         assert doc["protocol"]["timing_sources"] == {"te1_s": "assumed: TE1 = TE/2"}
         assert doc["protocol"]["te1_s"] == pytest.approx(doc["protocol"]["te_s"] / 2)
     cohort = (demo_cohort.out / "cohort.html").read_text(encoding="utf-8")
