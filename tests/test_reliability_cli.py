@@ -200,3 +200,21 @@ def test_a_window_outside_the_spectrum_names_the_scan(files, tmp_path):
     result = _run("preprocess", files / "raw.nii.gz", "--config", config, "-o",
                   tmp_path / "out.nii.gz")
     assert "lies outside the spectrum" in _one_error_line(result, files / "raw.nii.gz")
+
+
+# ------------------------------------------------------- 1: text processing history, report
+def test_a_file_with_a_text_processing_history_gets_its_report(files, tmp_path):
+    """Issue 17 item 1: ``ProcessingApplied[].Details`` as text (the standard's form)."""
+    from specproc.io import load
+
+    scan = load(files / "raw.nii.gz")
+    history = ({"Time": "2024-01-01T00:00:00", "Program": "converter", "Version": "2",
+                "Method": "coil combination", "Details": "weighted by the first points"},)
+    save(scan.replace(provenance=history), tmp_path / "history.nii.gz")
+    assert load(tmp_path / "history.nii.gz").provenance[0]["Details"] == (
+        "weighted by the first points")
+    result = _run("fit", tmp_path / "history.nii.gz", "--basis", files / "basis.npz", "-o",
+                  tmp_path / "out")
+    assert result.exit_code == 0, result.output
+    report = (tmp_path / "out" / "report.html").read_text("utf-8")
+    assert "weighted by the first points" in report
