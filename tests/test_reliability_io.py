@@ -94,6 +94,9 @@ def test_trailing_data_after_the_image_is_refused(tmp_path, compress):
     (_meta(SpectrometerFrequency=[2e298]), r"SpectrometerFrequency = 2e\+298 MHz means a "
                                            r"field of 4\.\d+e\+296 T for 1H, outside"),
     (_meta(SpectralWidth=5000.0), r"SpectralWidth = 5000 Hz disagrees with the dwell time"),
+    # found by the fuzz benchmark: integers beyond float range, and 400-digit messages
+    (_meta(SpectralWidth=2**70), r"SpectralWidth = 1\.18059e\+21 Hz disagrees"),
+    (_meta(EchoTime=10**400), r"EchoTime \(s\) must be a non-negative time, got 1000.{0,30}$"),
 ])
 def test_impossible_header_values_name_the_key_and_unit(tmp_path, meta, match):
     path = _fid_file(tmp_path, meta=meta)

@@ -16,6 +16,7 @@ import contextlib
 import logging
 import os
 import re
+import reprlib
 import warnings
 from collections.abc import Iterator, Mapping
 from pathlib import Path
@@ -29,6 +30,7 @@ __all__ = [
     "DEFAULT_MAX_INPUT_MB",
     "PHYSICAL_RANGES",
     "SEQUENCE_NAMES",
+    "brief",
     "check_declared_size",
     "check_options",
     "check_physical_ranges",
@@ -176,14 +178,26 @@ def optional_time_s(value: Any, name: str, path: Any, *, scale: float = 1.0) -> 
     if isinstance(value, list | tuple) and len(value) == 1:
         value = value[0]
     if isinstance(value, bool):
-        raise InvalidInputError(f"{name} is not a number: {value!r}", path)
+        raise InvalidInputError(f"{name} is not a number: {brief(value)}", path)
     try:
         number = float(value) * scale
+    except OverflowError:  # an integer beyond float range
+        number = float("inf")
     except (TypeError, ValueError):
-        raise InvalidInputError(f"{name} is not a number: {value!r}", path) from None
+        raise InvalidInputError(f"{name} is not a number: {brief(value)}", path) from None
     if not np.isfinite(number) or number < 0:
-        raise InvalidInputError(f"{name} must be a non-negative time, got {value!r}", path)
+        raise InvalidInputError(f"{name} must be a non-negative time, got {brief(value)}", path)
     return number
+
+
+_BRIEF = reprlib.Repr()  # Python 3.11 sets the limits by attribute
+_BRIEF.maxlong, _BRIEF.maxstring, _BRIEF.maxother, _BRIEF.maxlist, _BRIEF.maxlevel = (
+    24, 40, 40, 4, 2)
+
+
+def brief(value: Any) -> str:
+    """A short rendering of a header value for an error message (long numbers and texts cut)."""
+    return _BRIEF.repr(value)
 
 
 def merge_value(
@@ -361,9 +375,13 @@ def check_physical_ranges(
                 f"SpectralWidth must be a number (Hz), got {str(width)[:40]!r}", path
             )
         expected = scan.spectral_width_hz
+        try:
+            width = float(width)
+        except OverflowError:  # an integer beyond float range
+            width = float("inf")
         if not (np.isfinite(width) and abs(width - expected) <= 0.01 * expected):
             raise InvalidInputError(
-                f"SpectralWidth = {_show(float(width))} Hz disagrees with the dwell time "
+                f"SpectralWidth = {_show(width)} Hz disagrees with the dwell time "
                 f"({_show(scan.dwell_s)} s, i.e. {_show(expected)} Hz)",
                 path,
             )

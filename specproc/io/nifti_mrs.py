@@ -50,6 +50,7 @@ from specproc._json import to_jsonable
 from specproc.data import Scan, is_valid_dim_tag, make_step_record, user_key, user_value
 from specproc.errors import InvalidInputError
 from specproc.io._util import (
+    brief,
     check_declared_size,
     check_options,
     normalise_sequence_name,
@@ -144,7 +145,8 @@ def _read_raw(path: Path) -> bytes:
                     path,
                 )
     except (OSError, EOFError, zlib.error) as exc:
-        raise InvalidInputError(f"truncated or corrupt gzip data: {exc}", path) from None
+        what = "truncated or corrupt gzip data" if compressed else "cannot read the file"
+        raise InvalidInputError(f"{what}: {exc}", path) from None
     return raw
 
 
@@ -264,7 +266,7 @@ def _scan_from_image(img: Any, p: Path, *, n_bytes: int) -> Scan:
         }))
     water = meta.get("WaterSuppressed")
     if water is not None and not isinstance(water, bool):
-        raise InvalidInputError(f"WaterSuppressed must be true or false, got {water!r}", p)
+        raise InvalidInputError(f"WaterSuppressed must be true or false, got {brief(water)}", p)
     centre = user_value(meta, "specproc_centre_ppm")
     if centre is not None:
         centre = _finite(centre, "specproc_centre_ppm (ppm)", p)
@@ -401,13 +403,15 @@ def _json_extension(hdr: Any, p: Path) -> dict[str, Any]:
 
 def _finite(value: Any, name: str, p: Path) -> float:
     if isinstance(value, bool):
-        raise InvalidInputError(f"{name} is not a number: {value!r}", p)
+        raise InvalidInputError(f"{name} is not a number: {brief(value)}", p)
     try:
         number = float(value)
+    except OverflowError:  # an integer beyond float range
+        number = float("inf")
     except (TypeError, ValueError):
-        raise InvalidInputError(f"{name} is not a number: {value!r}", p) from None
+        raise InvalidInputError(f"{name} is not a number: {brief(value)}", p) from None
     if not np.isfinite(number):
-        raise InvalidInputError(f"{name} is not finite: {value!r}", p)
+        raise InvalidInputError(f"{name} is not finite: {brief(value)}", p)
     return number
 
 
@@ -419,7 +423,7 @@ def _first_number(meta: dict[str, Any], key: str, p: Path) -> float:
         raise InvalidInputError(f"missing spectrometer frequency ({key} in the JSON header)", p)
     number = _finite(value, key, p)
     if number <= 0:
-        raise InvalidInputError(f"{key} must be positive, got {value!r}", p)
+        raise InvalidInputError(f"{key} must be positive, got {brief(value)}", p)
     return number
 
 
@@ -428,7 +432,7 @@ def _first_text(meta: dict[str, Any], key: str, p: Path) -> str:
     if isinstance(value, list):
         value = value[0] if value else None
     if not isinstance(value, str) or not value.strip():
-        raise InvalidInputError(f"missing or invalid {key} in the JSON header: {value!r}", p)
+        raise InvalidInputError(f"missing or invalid {key} in the JSON header: {brief(value)}", p)
     return value.strip()
 
 
@@ -456,7 +460,7 @@ def _dimension_tags(
     for n in range(5, ndim + 1):
         tag = meta.get(f"dim_{n}", DEFAULT_DIM_TAGS[n])
         if not isinstance(tag, str) or not is_valid_dim_tag(tag):
-            raise InvalidInputError(f"unknown dimension tag dim_{n} = {tag!r}", p)
+            raise InvalidInputError(f"unknown dimension tag dim_{n} = {brief(tag)}", p)
         if tag in dims:
             raise InvalidInputError(f"dimension tag {tag} is used twice (dim_{n})", p)
         dims.append(tag)
