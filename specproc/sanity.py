@@ -17,8 +17,8 @@ import numpy as np
 
 from specproc.errors import InvalidInputError
 
-__all__ = ["MAX_SAMPLE_MAGNITUDE", "MIN_POINTS", "PRINCIPAL_METABOLITES", "check_signal",
-           "collapse_reason"]
+__all__ = ["MAX_SAMPLE_MAGNITUDE", "MIN_POINTS", "PRINCIPAL_METABOLITES", "ZERO_FRACTION",
+           "check_signal", "collapse_reason"]
 
 #: Fewest time-domain points an analysis accepts (a spectrum of fewer points cannot separate
 #: the singlets of NAA, creatine and choline at any field; common practice).
@@ -30,6 +30,9 @@ MAX_SAMPLE_MAGNITUDE: float = 1e150
 #: of every ratio: when all that the basis holds are fitted as zero, the fit found no spectrum
 #: (and every ratio to tCr is undefined).
 PRINCIPAL_METABOLITES: tuple[str, ...] = ("NAA", "NAAG", "Cr", "PCr")
+#: An amplitude below this fraction of the largest one counts as zero (round-off of the
+#: non-negative least squares leaves 1e-13-sized remainders).
+ZERO_FRACTION: float = 1e-6
 
 
 def check_signal(scan: Any) -> None:
@@ -86,12 +89,14 @@ def collapse_reason(names: Sequence[str], amplitudes: Sequence[float] | np.ndarr
     -------
     str or None
         ``"principal_metabolites_zero"`` when every principal metabolite of the basis
-        (:data:`PRINCIPAL_METABOLITES`) is at zero; ``"shift_at_limit"`` when a group
+        (:data:`PRINCIPAL_METABOLITES`) is at zero (below :data:`ZERO_FRACTION` of the
+        largest amplitude); ``"shift_at_limit"`` when a group
         frequency shift ended at its bound; ``None`` otherwise.
     """
-    principal = [float(a) for n, a in zip(names, amplitudes, strict=True)
-                 if n in PRINCIPAL_METABOLITES]
-    if principal and all(not a > 0 for a in principal):
+    values = [float(a) for a in amplitudes]
+    principal = [a for n, a in zip(names, values, strict=True) if n in PRINCIPAL_METABOLITES]
+    largest = max((a for a in values if a == a), default=0.0)
+    if principal and all(not a > ZERO_FRACTION * largest for a in principal):
         return "principal_metabolites_zero"
     for flag in flags:
         name = flag.split(":", 1)[1] if flag.startswith("at_bound:") else ""

@@ -3,8 +3,9 @@
 A single sample at the float32 limit or every sample scaled by 1e300 gave a ValueError from the
 least-squares bounds of the spectral registration; the registration and the outlier scores
 now work in float64 on data scaled by the median transient, and magnitudes whose squares would
-overflow float64 (above 1e150) are refused in one line before any processing. The bundled example (invented
-data) is the input; its expected behaviour is the outcome on the unmodified file.
+overflow float64 (above 1e150) are refused in one line before any processing. The bundled
+example (invented data) is the input; its expected behaviour is the outcome on the unmodified
+file.
 """
 
 from __future__ import annotations
