@@ -40,7 +40,7 @@ def _expected(rows: list[dict[str, str]], column: str) -> dict[str, dict[str, fl
     phantoms = _phantom_subjects()
     assert phantoms == {"phantom"}
     rows = [r for r in rows if r["subject"] not in phantoms]
-    names = {r["metabolite"] for r in rows if r["kind"] in ("metabolite", "sum")}
+    names = {r["metabolite"] for r in rows if r["kind"] in ("metabolite", "sum", "edited")}
     for name in names:
         mine = [r for r in rows if r["metabolite"] == name and r[column] != "n/a"]
         if not mine:
