@@ -17,8 +17,8 @@ import numpy as np
 
 from specproc.errors import InvalidInputError
 
-__all__ = ["MAX_SAMPLE_MAGNITUDE", "MIN_POINTS", "PRINCIPAL_METABOLITES", "ZERO_FRACTION",
-           "check_signal", "collapse_reason"]
+__all__ = ["MAX_SAMPLE_MAGNITUDE", "MIN_POINTS", "MIN_SAMPLE_MAGNITUDE", "PRINCIPAL_METABOLITES",
+           "ZERO_FRACTION", "check_signal", "collapse_reason"]
 
 #: Fewest time-domain points an analysis accepts (a spectrum of fewer points cannot separate
 #: the singlets of NAA, creatine and choline at any field; common practice).
@@ -26,6 +26,8 @@ MIN_POINTS: int = 64
 #: Largest sample magnitude accepted: its square must stay far from the float64 limit
 #: (1.8e308) through sums over thousands of points.
 MAX_SAMPLE_MAGNITUDE: float = 1e150
+#: Smallest largest-sample magnitude accepted: below it squares underflow float64 (1e-308).
+MIN_SAMPLE_MAGNITUDE: float = 1e-150
 #: Members of tNAA and tCr, the two largest singlets of every brain spectrum and the reference
 #: of every ratio: when all that the basis holds are fitted as zero, the fit found no spectrum
 #: (and every ratio to tCr is undefined).
@@ -60,6 +62,10 @@ def check_signal(scan: Any) -> None:
     largest = float(parts.max())
     if largest == 0.0:
         raise InvalidInputError("every sample is zero: the data hold no signal", where)
+    if largest < MIN_SAMPLE_MAGNITUDE:
+        raise InvalidInputError(
+            f"sample magnitudes of at most {largest:.3g} are too small to be processed "
+            f"(at least {MIN_SAMPLE_MAGNITUDE:g}); check the scaling of the data", where)
     if largest > MAX_SAMPLE_MAGNITUDE:
         raise InvalidInputError(
             f"sample magnitudes up to {largest:.3g} are beyond what can be processed "

@@ -58,6 +58,8 @@ def files(tmp_path_factory):
     save(_scan(clean * np.exp(0.05j * np.arange(8))[:, None] + noise(8), dims=("DIM_DYN",)),
          root / "raw.nii.gz")
     save(_scan(np.full(N, 1 + 1j)), root / "constant.nii.gz")
+    # found by the fuzz benchmark: samples scaled by 1e-300 (squares underflow)
+    save(_scan((clean + noise()) * 1e-300), root / "tiny.nii.gz")
     # one line at 1.0 ppm, where the basis has none: the fit runs its shift to the limit
     lipid = 20 * np.exp(-2j * np.pi * (1.0 - CENTRE) * MHZ * t - np.pi * 6 * t)
     save(_scan(lipid + noise()), root / "lipid.nii.gz")
@@ -219,3 +221,9 @@ def test_a_file_with_a_text_processing_history_gets_its_report(files, tmp_path):
     assert result.exit_code == 0, result.output
     report = (tmp_path / "out" / "report.html").read_text("utf-8")
     assert "weighted by the first points" in report
+
+
+def test_data_too_small_to_square_are_refused(files, tmp_path):
+    result = _fit(files, "tiny.nii.gz", tmp_path / "out")
+    assert "too small to be processed" in _one_error_line(result, files / "tiny.nii.gz")
+    assert not (tmp_path / "out").exists()
