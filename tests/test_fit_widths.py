@@ -142,3 +142,27 @@ def test_baseline_stiffness_follows_the_data():
                               spectrometer_mhz=MHZ, centre_ppm=CENTRE), _basis(t),
                          config={**config, "baseline_auto": False})
     assert abs(fixed.amplitudes[0] / 10.0 - 1) > 2 * abs(humped.amplitudes[0] / 10.0 - 1)
+
+
+def test_tied_macromolecule_amplitudes_share_one_level():
+    # two macromolecule members, one under NAA: tied with a small relative SD, both come out
+    # near their common level, and the prior narrows the bound of the hidden one
+    t = np.arange(N) * DWELL
+    mm_a = 2 * _line(t, 0.90) * np.exp(-(40.0 * t) ** 2)
+    mm_b = 2 * _line(t, 2.02) * np.exp(-(40.0 * t) ** 2)
+    met = _basis(t)
+    basis = BasisSet(names=(*met.names, "MM0.90", "MM2.02"),
+                     fids=np.vstack([met.fids, mm_a, mm_b]), dwell_s=DWELL,
+                     spectrometer_mhz=MHZ, centre_ppm=CENTRE,
+                     kinds=(*met.kinds, "macromolecule", "macromolecule"))
+    rng = np.random.default_rng(2)
+    shared = np.exp(-np.pi * 2.0 * t - 60.0 * t * t + 0.3j)
+    fid = (_tissue_fid(t) + 3.5 * (mm_a + mm_b) * shared
+           + 0.2 * (rng.standard_normal(N) + 1j * rng.standard_normal(N)))
+    scan = Scan(fid, dwell_s=DWELL, spectrometer_mhz=MHZ, centre_ppm=CENTRE)
+    base = {"range_ppm": [0.5, 4.2], "baseline": False}
+    free = fit_spectrum(scan, basis, config=base)
+    tied = fit_spectrum(scan, basis, config={**base, "mm_amplitude_sd": 0.02})
+    assert tied.amplitudes[3] == pytest.approx(tied.amplitudes[4], rel=0.1)
+    np.testing.assert_allclose(tied.amplitudes, [10.0, 8.0, 1.5, 3.5, 3.5], rtol=0.05)
+    assert tied.crlb_sd[4] < 0.9 * free.crlb_sd[4]  # the prior enters the bound
