@@ -166,3 +166,17 @@ def test_tied_macromolecule_amplitudes_share_one_level():
     assert tied.amplitudes[3] == pytest.approx(tied.amplitudes[4], rel=0.1)
     np.testing.assert_allclose(tied.amplitudes, [10.0, 8.0, 1.5, 3.5, 3.5], rtol=0.05)
     assert tied.crlb_sd[4] < 0.9 * free.crlb_sd[4]  # the prior enters the bound
+
+
+def test_relaxation_overrides_of_the_configuration_move_the_width_prior():
+    # a [relaxation] override (the table the relaxation corrections use) sets the expected
+    # widths too: NAA given T2 = 0.10 s gets 1/(π 0.10 s) ≈ 3.2 Hz in the model
+    from specproc.fit.fitter import _relaxation
+
+    t = np.arange(256) * DWELL
+    scan = Scan(_tissue_fid(t), dwell_s=DWELL, spectrometer_mhz=MHZ, centre_ppm=CENTRE)
+    config = {"fit": {}, "relaxation": {"metabolite": {"NAA": {"t2_s": 0.10}}}}
+    relax = _relaxation(config, scan, FitSettings())
+    assert relax.metabolite("NAA").t2_s == pytest.approx(0.10)
+    assert expected_damping(("NAA",), ("metabolite",), 2.89, relax)[0] == pytest.approx(10.0)
+    assert _relaxation({"fit": {}}, scan, FitSettings()) is None  # the bundled table

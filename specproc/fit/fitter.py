@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import dataclasses
 import time
+from collections.abc import Mapping
 from typing import Any
 
 import numpy as np
@@ -146,7 +147,8 @@ def _fit(scan: Scan, basis: BasisSet, config: Any) -> FitResult:
     names = tuple(basis.names[i] for i in members)
     kinds = tuple(basis.kinds[i] for i in members)
     fids = basis_on_scan(basis, scan)[members]
-    model = build_model(scan, fids, names, kinds, settings)
+    model = build_model(scan, fids, names, kinds, settings,
+                        relaxation=_relaxation(config, scan, settings))
     data = np.fft.fft(np.asarray(scan.data, dtype=complex))[model.index]
 
     noise_regions: list[tuple[float, float]]
@@ -178,6 +180,20 @@ def _fit(scan: Scan, basis: BasisSet, config: Any) -> FitResult:
         # An apodized FID has coloured noise: the same independence assumption fails.
         result = dataclasses.replace(result, flags=(*result.flags, "apodized_data"))
     return result
+
+
+def _relaxation(config: Any, scan: Scan, settings: FitSettings) -> Any:
+    """Relaxation times of the width prior: the ``[relaxation]`` overrides of a whole
+    configuration applied to the bundled table (the values the relaxation corrections use),
+    or None for the bundled table itself."""
+    if settings.width_prior != "relaxation" or not isinstance(config, Mapping):
+        return None
+    overrides = config.get("relaxation") if "fit" in config else None
+    if not overrides:
+        return None
+    from specproc.quantify import load_relaxation_times
+
+    return load_relaxation_times(scan.field_t, overrides=overrides)
 
 
 def _zero_filled_points(fid: np.ndarray) -> int:
