@@ -98,7 +98,8 @@ def test_macromolecules_get_a_width_of_their_own():
     fid = _tissue_fid(t, mm_damping=np.pi * 12.0)
     scan = Scan(fid, dwell_s=DWELL, spectrometer_mhz=MHZ, centre_ppm=CENTRE)
     res = fit_spectrum(scan, _basis(t, mm=True),
-                       config={"range_ppm": [1.0, 4.2], "baseline": False, "noise_sd": 1e-3})
+                       config={"range_ppm": [1.0, 4.2], "baseline": False, "noise_sd": 1e-3,
+                               "separate_damping": ["kind:macromolecule"]})
     # its own damping replaces the metabolites' shared one: 12 Hz here plus the 2 Hz of all
     assert res.nonlinear["damping_MM2.0_per_s"] == pytest.approx(np.pi * 14.0, rel=1e-3)
     np.testing.assert_allclose(res.amplitudes, [10.0, 8.0, 1.5, 3.0], rtol=1e-4)
