@@ -148,7 +148,7 @@ class FitSettings:
     shift_sd_hz: float = 1.0
     damping_sd_hz: float = 0.2
     width_prior: str = "relaxation"
-    mm_shift_sd_ppm: float = 0.02
+    mm_shift_sd_ppm: float = 0.01
     mm_amplitude_members: tuple[str, ...] = ("MM*",)
     mm_amplitude_sd: float = 0.0
     shift_search_ppm: float = 0.15
