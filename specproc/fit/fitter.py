@@ -223,7 +223,7 @@ def _choose_penalty(
 
     The unbiased risk estimate (Mallows' Cp) with the measured noise: the data choose between
     a stiff baseline (small edf, larger χ²) and a flexible one that absorbs what the basis does
-    not model (broad signals of other shape). Eight grid points per decade of
+    not model (broad signals of other shape). Two grid points per decade of
     ``baseline_penalty_range``, refined by a parabola in log λ through the best point and its
     neighbours.
 
@@ -234,7 +234,7 @@ def _choose_penalty(
        1979;31:377-403.
     """
     lo, hi = np.log10(settings.baseline_penalty_range)
-    n_grid = max(2, int(np.ceil(4 * (hi - lo))) + 1)
+    n_grid = max(2, int(np.ceil(2 * (hi - lo))) + 1)
     grid = np.linspace(lo, hi, n_grid)
     spectra, fids, phase = problem.model.member_spectra(theta)
     s2 = problem.noise_sd**2
