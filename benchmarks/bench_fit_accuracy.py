@@ -81,8 +81,11 @@ def model_fid(basis: BasisSet, conc: np.ndarray, t: np.ndarray,
     shift = np.zeros(len(basis.names))
     if rng is not None:
         m = len(basis.names)
-        damp = np.where(mm, np.pi * defaults.separate_damping_sd_hz * np.abs(rng.normal(size=m)),
-                        damp + np.pi * defaults.damping_sd_hz * rng.normal(size=m))
+        separate = mm & bool(defaults.separate_damping) & (defaults.separate_damping_sd_hz > 0)
+        damp = np.where(separate,
+                        np.pi * defaults.separate_damping_sd_hz * np.abs(rng.normal(size=m)),
+                        damp + np.where(mm, 0.0, np.pi * defaults.damping_sd_hz
+                                        * rng.normal(size=m)))
         shift = np.where(mm, defaults.mm_shift_sd_ppm * basis.spectrometer_mhz,
                          defaults.shift_sd_hz) * rng.normal(size=m)
     fids = basis.fids * np.exp(-np.outer(damp + 2j * np.pi * shift, t))

@@ -98,7 +98,8 @@ def test_macromolecules_get_a_width_of_their_own():
     fid = _tissue_fid(t, mm_damping=np.pi * 12.0)
     scan = Scan(fid, dwell_s=DWELL, spectrometer_mhz=MHZ, centre_ppm=CENTRE)
     res = fit_spectrum(scan, _basis(t, mm=True),
-                       config={"range_ppm": [1.0, 4.2], "baseline": False, "noise_sd": 1e-3})
+                       config={"range_ppm": [1.0, 4.2], "baseline": False, "noise_sd": 1e-3,
+                               "separate_damping": ["kind:macromolecule"]})
     # its own damping replaces the metabolites' shared one: 12 Hz here plus the 2 Hz of all
     assert res.nonlinear["damping_MM2.0_per_s"] == pytest.approx(np.pi * 14.0, rel=1e-3)
     np.testing.assert_allclose(res.amplitudes, [10.0, 8.0, 1.5, 3.0], rtol=1e-4)
@@ -142,3 +143,41 @@ def test_baseline_stiffness_follows_the_data():
                               spectrometer_mhz=MHZ, centre_ppm=CENTRE), _basis(t),
                          config={**config, "baseline_auto": False})
     assert abs(fixed.amplitudes[0] / 10.0 - 1) > 2 * abs(humped.amplitudes[0] / 10.0 - 1)
+
+
+def test_tied_macromolecule_amplitudes_share_one_level():
+    # two macromolecule members, one under NAA: tied with a small relative SD, both come out
+    # near their common level, and the prior narrows the bound of the hidden one
+    t = np.arange(N) * DWELL
+    mm_a = 2 * _line(t, 0.90) * np.exp(-(40.0 * t) ** 2)
+    mm_b = 2 * _line(t, 2.02) * np.exp(-(40.0 * t) ** 2)
+    met = _basis(t)
+    basis = BasisSet(names=(*met.names, "MM0.90", "MM2.02"),
+                     fids=np.vstack([met.fids, mm_a, mm_b]), dwell_s=DWELL,
+                     spectrometer_mhz=MHZ, centre_ppm=CENTRE,
+                     kinds=(*met.kinds, "macromolecule", "macromolecule"))
+    rng = np.random.default_rng(2)
+    shared = np.exp(-np.pi * 2.0 * t - 60.0 * t * t + 0.3j)
+    fid = (_tissue_fid(t) + 3.5 * (mm_a + mm_b) * shared
+           + 0.2 * (rng.standard_normal(N) + 1j * rng.standard_normal(N)))
+    scan = Scan(fid, dwell_s=DWELL, spectrometer_mhz=MHZ, centre_ppm=CENTRE)
+    base = {"range_ppm": [0.5, 4.2], "baseline": False}
+    free = fit_spectrum(scan, basis, config=base)
+    tied = fit_spectrum(scan, basis, config={**base, "mm_amplitude_sd": 0.02})
+    assert tied.amplitudes[3] == pytest.approx(tied.amplitudes[4], rel=0.1)
+    np.testing.assert_allclose(tied.amplitudes, [10.0, 8.0, 1.5, 3.5, 3.5], rtol=0.05)
+    assert tied.crlb_sd[4] < 0.9 * free.crlb_sd[4]  # the prior enters the bound
+
+
+def test_relaxation_overrides_of_the_configuration_move_the_width_prior():
+    # a [relaxation] override (the table the relaxation corrections use) sets the expected
+    # widths too: NAA given T2 = 0.10 s gets 1/(π 0.10 s) ≈ 3.2 Hz in the model
+    from specproc.fit.fitter import _relaxation
+
+    t = np.arange(256) * DWELL
+    scan = Scan(_tissue_fid(t), dwell_s=DWELL, spectrometer_mhz=MHZ, centre_ppm=CENTRE)
+    config = {"fit": {}, "relaxation": {"metabolite": {"NAA": {"t2_s": 0.10}}}}
+    relax = _relaxation(config, scan, FitSettings())
+    assert relax.metabolite("NAA").t2_s == pytest.approx(0.10)
+    assert expected_damping(("NAA",), ("metabolite",), 2.89, relax)[0] == pytest.approx(10.0)
+    assert _relaxation({"fit": {}}, scan, FitSettings()) is None  # the bundled table

@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import dataclasses
 import time
+from collections.abc import Mapping
 from typing import Any
 
 import numpy as np
@@ -31,6 +32,7 @@ from specproc.fit.model import (
     basis_on_scan,
     build_model,
     gauss_fwhm_hz,
+    matches,
     start_values,
 )
 from specproc.fit.result import FitResult
@@ -145,7 +147,8 @@ def _fit(scan: Scan, basis: BasisSet, config: Any) -> FitResult:
     names = tuple(basis.names[i] for i in members)
     kinds = tuple(basis.kinds[i] for i in members)
     fids = basis_on_scan(basis, scan)[members]
-    model = build_model(scan, fids, names, kinds, settings)
+    model = build_model(scan, fids, names, kinds, settings,
+                        relaxation=_relaxation(config, scan, settings))
     data = np.fft.fft(np.asarray(scan.data, dtype=complex))[model.index]
 
     noise_regions: list[tuple[float, float]]
@@ -162,7 +165,9 @@ def _fit(scan: Scan, basis: BasisSet, config: Any) -> FitResult:
         bmat = np.zeros((model.ppm.size, 0))
     problem = VarproProblem(model, data, bmat, _penalty_matrix(bmat, settings.baseline_penalty),
                             noise_sd)
-    problem, weight, theta, messages, ok, nfev = _optimise(problem, model, settings)
+    tied = np.array([settings.mm_amplitude_sd > 0 and matches(n, k, settings.mm_amplitude_members)
+                     for n, k in zip(names, kinds, strict=True)], dtype=bool)
+    problem, weight, theta, messages, ok, nfev = _optimise(problem, model, settings, tied)
     result = _assemble(problem, model, theta, settings, names, kinds, noise_sd, noise_regions,
                        messages, ok, nfev, start)
     if problem.nb:
@@ -175,6 +180,20 @@ def _fit(scan: Scan, basis: BasisSet, config: Any) -> FitResult:
         # An apodized FID has coloured noise: the same independence assumption fails.
         result = dataclasses.replace(result, flags=(*result.flags, "apodized_data"))
     return result
+
+
+def _relaxation(config: Any, scan: Scan, settings: FitSettings) -> Any:
+    """Relaxation times of the width prior: the ``[relaxation]`` overrides of a whole
+    configuration applied to the bundled table (the values the relaxation corrections use),
+    or None for the bundled table itself."""
+    if settings.width_prior != "relaxation" or not isinstance(config, Mapping):
+        return None
+    overrides = config.get("relaxation") if "fit" in config else None
+    if not overrides:
+        return None
+    from specproc.quantify import load_relaxation_times
+
+    return load_relaxation_times(scan.field_t, overrides=overrides)
 
 
 def _zero_filled_points(fid: np.ndarray) -> int:
@@ -204,7 +223,7 @@ def _choose_penalty(
 
     The unbiased risk estimate (Mallows' Cp) with the measured noise: the data choose between
     a stiff baseline (small edf, larger χ²) and a flexible one that absorbs what the basis does
-    not model (broad signals of other shape). Eight grid points per decade of
+    not model (broad signals of other shape). Two grid points per decade of
     ``baseline_penalty_range``, refined by a parabola in log λ through the best point and its
     neighbours.
 
@@ -215,14 +234,15 @@ def _choose_penalty(
        1979;31:377-403.
     """
     lo, hi = np.log10(settings.baseline_penalty_range)
-    n_grid = max(2, int(np.ceil(4 * (hi - lo))) + 1)
+    n_grid = max(2, int(np.ceil(2 * (hi - lo))) + 1)
     grid = np.linspace(lo, hi, n_grid)
     spectra, fids, phase = problem.model.member_spectra(theta)
     s2 = problem.noise_sd**2
     scores = []
     for log_w in grid:
         trial = VarproProblem(problem.model, problem.y, problem.bmat,
-                              _penalty_matrix(problem.bmat, 10.0**log_w), problem.noise_sd)
+                              _penalty_matrix(problem.bmat, 10.0**log_w), problem.noise_sd,
+                              amplitude_prior=problem.lmat)
         sol = trial.solve_given(spectra, fids, phase)
         chi2 = float(np.vdot(sol.residual, sol.residual).real) / s2
         scores.append(chi2 + 2.0 * trial.effective_dof(sol))
@@ -235,12 +255,39 @@ def _choose_penalty(
             log_w += 0.5 * (a - c) / denom * (grid[1] - grid[0])
     weight = float(10.0**log_w)
     chosen = VarproProblem(problem.model, problem.y, problem.bmat,
-                           _penalty_matrix(problem.bmat, weight), problem.noise_sd)
+                           _penalty_matrix(problem.bmat, weight), problem.noise_sd,
+                           amplitude_prior=problem.lmat)
     return chosen, weight
 
 
+def _amplitude_tie(
+    problem: VarproProblem, theta: np.ndarray, settings: FitSettings, tied_mask: np.ndarray
+) -> np.ndarray:
+    """Rows of the prior that ties the macromolecule amplitudes to their common level.
+
+    The members matching ``mm_amplitude_members`` have expected amplitudes in the ratios that
+    the basis already holds (one level ``c̄`` for all); each deviation ``c_m - mean(c)`` gets a
+    zero-mean Gaussian prior of SD ``mm_amplitude_sd · s``, with the level ``s`` the mean of
+    those amplitudes fitted without the tie at θ. The rows are ``noise_sd / (sd · s) · (e_m -
+    1/n)``: the objective gains ``Σ_m (c_m - c̄)² / (sd s)²`` in units of the noise variance,
+    and the bounds include the prior. Empty when the tie is off, fewer than two members
+    match, or they are all zero.
+    """
+    m = problem.model.n_members
+    tied = np.flatnonzero(tied_mask)
+    if tied.size < 2:
+        return np.zeros((0, m))
+    level = float(problem.solve_linear(theta).amplitudes[tied].mean())
+    if not level > 0:
+        return np.zeros((0, m))
+    rows = np.zeros((tied.size, m))
+    rows[np.arange(tied.size), tied] = 1.0
+    rows[:, tied] -= 1.0 / tied.size
+    return rows * (problem.noise_sd / (settings.mm_amplitude_sd * level))
+
+
 def _optimise(
-    problem: VarproProblem, model: SpectralModel, settings: FitSettings
+    problem: VarproProblem, model: SpectralModel, settings: FitSettings, tied: np.ndarray
 ) -> tuple[VarproProblem, float, np.ndarray, str, bool, int]:
     lay = model.layout
     fixed = set(settings.fixed)
@@ -270,6 +317,10 @@ def _optimise(
     weight = settings.baseline_penalty
     if settings.baseline and settings.baseline_auto and problem.nb:
         problem, weight = _choose_penalty(problem, theta, settings)
+    tie = _amplitude_tie(problem, theta, settings, tied)
+    if tie.shape[0]:
+        problem = VarproProblem(model, problem.y, problem.bmat, problem.pmat, problem.noise_sd,
+                                amplitude_prior=tie)
     stage2 = ~lay.mask(list(fixed))
     theta, res2 = problem.refine(theta, stage2, max_nfev=settings.max_iterations, tight=True)
     nfev += res2.nfev if res2 is not None else 0
@@ -306,8 +357,10 @@ def _assemble(
     k = model.ppm.size
     n_pen = problem.pmat.shape[0]
     n_prior = problem.prior_index.size
+    n_tie = problem.lmat.shape[0]
     n_par = m + 2 * nb + i_free.size
-    jac = np.zeros((2 * k + 2 * n_pen + n_prior, n_par))
+    jac = np.zeros((2 * k + 2 * n_pen + n_tie + n_prior, n_par))
+    jac[2 * k + 2 * n_pen:2 * k + 2 * n_pen + n_tie, :m] = problem.lmat
     jac[:k, :m] = sol.spectra.real
     jac[k:2 * k, :m] = sol.spectra.imag
     if nb:
@@ -320,7 +373,7 @@ def _assemble(
     prior_pos = {int(j): r for r, j in enumerate(problem.prior_index)}
     for col, j in enumerate(i_free):
         if int(j) in prior_pos:
-            jac[2 * k + 2 * n_pen + prior_pos[int(j)], m + 2 * nb + col] = (
+            jac[2 * k + 2 * n_pen + n_tie + prior_pos[int(j)], m + 2 * nb + col] = (
                 problem.prior_weight[prior_pos[int(j)]]
             )
     fisher = (jac.T @ jac) / noise_sd**2

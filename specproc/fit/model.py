@@ -28,6 +28,7 @@ Model (frequency domain, fit-range points ν_k, Hz)::
 
 from __future__ import annotations
 
+import fnmatch
 from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -70,10 +71,11 @@ def _gauss_s2_from_fwhm(fwhm_hz: float) -> float:
 
 
 def matches(name: str, kind: str, patterns: Sequence[str]) -> bool:
-    """Whether a member matches one of ``patterns`` (a name, ``"kind:<kind>"`` or ``"*"``)."""
+    """Whether a member matches one of ``patterns``: a name or shell-style pattern of names
+    (``"*"``, ``"MM*"``; case-insensitive) or ``"kind:<kind>"``."""
     for pattern in patterns:
         p = pattern.lower()
-        if p == "*" or p == name.lower() or p == f"kind:{kind.lower()}":
+        if p == f"kind:{kind.lower()}" or fnmatch.fnmatchcase(name.lower(), p):
             return True
     return False
 

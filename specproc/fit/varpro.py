@@ -51,6 +51,8 @@ class LinearSolution:
         ``y - A c - B β``.
     penalty : (n_b - 2,) complex ndarray
         ``√λ D₂ β``.
+    amp_penalty : (r,) ndarray
+        ``L c``, the rows of the amplitude prior.
     spectra, fids, phase : ndarrays
         Member spectra A (K, M), modulated FIDs (M, N) and phase factor (K,) at θ.
     """
@@ -59,6 +61,7 @@ class LinearSolution:
     baseline_coef: np.ndarray
     residual: np.ndarray
     penalty: np.ndarray
+    amp_penalty: np.ndarray
     spectra: np.ndarray
     fids: np.ndarray
     phase: np.ndarray
@@ -79,6 +82,10 @@ class VarproProblem:
         ``√λ D₂`` (already weighted).
     noise_sd : float
         Noise SD of one spectral component (weights the prior rows).
+    amplitude_prior : (r, M) ndarray, optional
+        Rows ``L`` of a zero-mean Gaussian prior on linear combinations of the amplitudes
+        (already weighted: the objective gains ``||L c||²``), e.g. ties between the
+        macromolecule amplitudes.
     """
 
     def __init__(
@@ -88,12 +95,17 @@ class VarproProblem:
         baseline: np.ndarray,
         penalty_matrix: np.ndarray,
         noise_sd: float,
+        amplitude_prior: np.ndarray | None = None,
     ) -> None:
         self.model = model
         self.y = np.asarray(data, dtype=complex)
         self.bmat = np.asarray(baseline, dtype=float)
         self.pmat = np.asarray(penalty_matrix, dtype=float)
         self.noise_sd = float(noise_sd)
+        m = model.n_members
+        self.lmat = (np.zeros((0, m)) if amplitude_prior is None
+                     else np.asarray(amplitude_prior, dtype=float))
+        self.ltl = self.lmat.T @ self.lmat
         nb = self.bmat.shape[1]
         self.nb = nb
         if nb:
@@ -120,10 +132,18 @@ class VarproProblem:
             return np.zeros((0, *rb.shape[1:]), dtype=complex)
         return scipy.linalg.solve_triangular(self.chol_b, rb, lower=True, trans="T")
 
-    def reduced_normal(self, spectra: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Normal equations of c with β eliminated: G (M, M), h (M,), and Q A (n_b, M)."""
+    def reduced_normal(
+        self, spectra: np.ndarray, members: np.ndarray | None = None
+    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Normal equations of c with β eliminated: G (M, M), h (M,), and Q A (n_b, M).
+
+        ``spectra`` are the columns of all members, or of the members selected by the boolean
+        mask ``members``; G includes the amplitude prior ``LᵀL`` of those members.
+        """
         qa = self.q @ spectra
         g = (spectra.conj().T @ spectra).real - (qa.conj().T @ qa).real
+        if self.lmat.shape[0]:
+            g = g + (self.ltl if members is None else self.ltl[np.ix_(members, members)])
         h = (spectra.conj().T @ self.y).real - (qa.conj().T @ self.qy).real
         return g, h, qa
 
@@ -147,10 +167,10 @@ class VarproProblem:
         beta = self._baseline_from(rb)
         residual = self.y - spectra @ c - (self.bmat @ beta if self.nb else 0.0)
         penalty = self.pmat @ beta if self.nb else np.zeros(0, dtype=complex)
-        return LinearSolution(c, beta, residual, penalty, spectra, fids, phase)
+        return LinearSolution(c, beta, residual, penalty, self.lmat @ c, spectra, fids, phase)
 
     def effective_dof(self, sol: LinearSolution) -> float:
-        """Effective number of linear parameters ``tr((XᵀX + PᵀP)⁻¹ XᵀX)`` at a solution.
+        """Effective number of linear parameters ``tr((XᵀX + PᵀP + LᵀL)⁻¹ XᵀX)`` at a solution.
 
         ``X`` is the real design of the free amplitudes (c > 0) and of the real and imaginary
         baseline coefficients, ``P`` the penalty; the trace of the hat matrix of the penalised
@@ -158,7 +178,7 @@ class VarproProblem:
         """
         a = sol.spectra[:, sol.amplitudes > 0]
         nf, nb = a.shape[1], self.nb
-        if not nb:
+        if not nb and not self.lmat.shape[0]:
             return float(nf)
         btb = self.bmat.T @ self.bmat
         ptp = self.pmat.T @ self.pmat
@@ -172,6 +192,8 @@ class VarproProblem:
         xtx[nf:nf + nb, nf:nf + nb] = btb
         xtx[nf + nb:, nf + nb:] = btb
         h = xtx.copy()
+        free = sol.amplitudes > 0
+        h[:nf, :nf] += self.ltl[np.ix_(free, free)]
         h[nf:nf + nb, nf:nf + nb] += ptp
         h[nf + nb:, nf + nb:] += ptp
         return float(np.trace(_solve_psd(h, xtx)))
@@ -182,7 +204,8 @@ class VarproProblem:
         sol = self.solve_linear(theta)
         prior = self.prior_weight * theta[self.prior_index]
         return np.concatenate(
-            [sol.residual.real, sol.residual.imag, sol.penalty.real, sol.penalty.imag, prior]
+            [sol.residual.real, sol.residual.imag, sol.penalty.real, sol.penalty.imag,
+             sol.amp_penalty, prior]
         )
 
     def objective(self, theta: np.ndarray) -> float:
@@ -208,14 +231,16 @@ class VarproProblem:
         free = sol.amplitudes > 0
         a_f = sol.spectra[:, free]
         v = cols
+        amp_rows = np.zeros((self.lmat.shape[0], v.shape[1]))
         if a_f.shape[1] or self.nb:
-            g, _, qa = self.reduced_normal(a_f)
+            g, _, qa = self.reduced_normal(a_f, free)
             qv = self.q @ v
             hv = (a_f.conj().T @ v).real - (qa.conj().T @ qv).real
             cv = _solve_psd(g, hv)
             bv = self._baseline_from(qv - qa @ cv)
             proj = v - a_f @ cv - (self.bmat @ bv if self.nb else 0.0)
             pen = self.pmat @ bv if self.nb else np.zeros((0, v.shape[1]), dtype=complex)
+            amp_rows = -(self.lmat[:, free] @ cv)
         else:
             proj = v
             pen = np.zeros((0, v.shape[1]), dtype=complex)
@@ -225,7 +250,7 @@ class VarproProblem:
         for r, j in enumerate(self.prior_index):
             if int(j) in where:
                 prior_rows[r, where[int(j)]] = self.prior_weight[r]
-        return np.vstack([-proj.real, -proj.imag, -pen.real, -pen.imag, prior_rows])
+        return np.vstack([-proj.real, -proj.imag, -pen.real, -pen.imag, amp_rows, prior_rows])
 
     # ------------------------------------------------------------------ optimisation
     def refine(
