@@ -597,17 +597,25 @@ def with_anatomy_columns(rows: list[dict[str, Any]],
     return out
 
 
-def add_anatomy(out_dir: Path) -> None:
-    """Add the demo anatomy to an existing study (scans, manifest) without regenerating it."""
+def _read_manifest(out_dir: Path) -> list[dict[str, str]]:
     with open(out_dir / "manifest.tsv", encoding="utf-8", newline="") as handle:
-        rows = list(csv.DictReader(handle, delimiter="\t"))
-    rows = with_anatomy_columns(rows, write_demo_anatomy(out_dir))
+        return list(csv.DictReader(handle, delimiter="\t"))
+
+
+def _write_manifest(out_dir: Path, rows: list[dict[str, Any]]) -> None:
+    """manifest.tsv with the columns of the first row (written atomically)."""
     buffer = io.StringIO()
     writer = csv.DictWriter(buffer, fieldnames=list(rows[0]), delimiter="\t",
                             lineterminator="\n")
     writer.writeheader()
     writer.writerows(rows)
     write_text(out_dir / "manifest.tsv", buffer.getvalue())
+
+
+def add_anatomy(out_dir: Path) -> None:
+    """Add the demo anatomy to an existing study (scans, manifest) without regenerating it."""
+    rows = with_anatomy_columns(_read_manifest(out_dir), write_demo_anatomy(out_dir))
+    _write_manifest(out_dir, rows)
 
 #: The invented edited (MEGA-PRESS GABA) scan of the study: subject, seed, ON/OFF pairs, SNR.
 EDITED = {"subject": "sub-05", "session": "ses-01", "seed": 505, "n_pairs": 64, "snr": 400.0}
@@ -656,16 +664,9 @@ def edited_scan(out_dir: Path) -> tuple[dict[str, Any], dict[str, Any]]:
 def add_edited(out_dir: Path) -> None:
     """Add (or rewrite) the edited scan of an existing study: files, manifest row, truth."""
     row, truth = edited_scan(out_dir)
-    with open(out_dir / "manifest.tsv", encoding="utf-8", newline="") as handle:
-        rows = [r for r in csv.DictReader(handle, delimiter="\t")
-                if r.get("subject") != EDITED["subject"]]
+    rows = [r for r in _read_manifest(out_dir) if r.get("subject") != EDITED["subject"]]
     rows.append({key: row.get(key, "") for key in rows[0]})
-    buffer = io.StringIO()
-    writer = csv.DictWriter(buffer, fieldnames=list(rows[0]), delimiter="\t",
-                            lineterminator="\n")
-    writer.writeheader()
-    writer.writerows(rows)
-    write_text(out_dir / "manifest.tsv", buffer.getvalue())
+    _write_manifest(out_dir, rows)
     doc = json.loads((out_dir / "truth.json").read_text(encoding="utf-8"))
     doc["edited_scans"] = [truth]
     write_text(out_dir / "truth.json", json.dumps(doc, indent=1) + "\n")
@@ -698,12 +699,7 @@ def make_demo(out_dir: Path) -> dict[str, Any]:
         scans.append({"scan": _relative(svs, out_dir), "water": _relative(ref, out_dir),
                       **truth})
     rows = with_anatomy_columns(rows, write_demo_anatomy(out_dir))
-    buffer = io.StringIO()
-    writer = csv.DictWriter(buffer, fieldnames=list(rows[0]), delimiter="\t",
-                            lineterminator="\n")
-    writer.writeheader()
-    writer.writerows(rows)
-    write_text(out_dir / "manifest.tsv", buffer.getvalue())
+    _write_manifest(out_dir, rows)
     write_text(out_dir / "dataset_description.json",
                json.dumps(_dataset_description(), indent=1) + "\n")
     truth_doc = {
