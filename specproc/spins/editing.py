@@ -23,7 +23,6 @@ shaped_pulse_propagator`), so J evolution and off-resonance effects during the p
 
 from __future__ import annotations
 
-from collections.abc import Sequence as _Seq
 from dataclasses import dataclass
 
 import numpy as np
@@ -35,7 +34,6 @@ __all__ = [
     "EditPulse",
     "gaussian_envelope",
     "mega_press",
-    "without_shaped_pulses",
 ]
 
 #: Truncation of the Gaussian editing envelope at its ends, relative to its peak.
@@ -183,15 +181,3 @@ def mega_press(
     timings = {"te_s": te, "te1_s": te1, "te2_s": te2, "edit_a_s": t_a, "edit_b_s": t_b,
                "edit_pulse_s": d, "edit_ppm": float(edit.shift_ppm)}
     return Sequence("mega-press", events, timings)
-
-
-def without_shaped_pulses(sequence: Sequence) -> Sequence:
-    """The same sequence with each shaped pulse replaced by free precession of its length.
-
-    The receiver phase of an edited acquisition is that of the sequence without its editing
-    pulses, so that ON and OFF sub-spectra share one phase (as on the scanner).
-    """
-    events: _Seq[Pulse | Delay | ShapedPulse] = [
-        Delay(e.duration_s) if isinstance(e, ShapedPulse) else e for e in sequence.events
-    ]
-    return Sequence(sequence.name, tuple(events), dict(sequence.timings_s))

@@ -49,6 +49,7 @@ __all__ = [
     "ShapedPulse",
     "build_sequence",
     "normalise_sequence_name",
+    "without_shaped_pulses",
 ]
 
 #: Sequence names understood by :func:`build_sequence`.
@@ -323,3 +324,14 @@ def _semi_laser_from_delays(delays_s: _Seq[float], te: float | None) -> Sequence
     timings = {"te_s": total}
     timings.update({f"d{k}_s": d for k, d in enumerate(delays, start=1)})
     return Sequence("semi-laser", tuple(events), timings)
+
+
+def without_shaped_pulses(sequence: Sequence) -> Sequence:
+    """The same sequence with each shaped pulse replaced by free precession of its length.
+
+    The receiver phase of an edited acquisition is that of the sequence without its editing
+    pulses, so that ON and OFF sub-spectra share one phase (as on the scanner).
+    """
+    events = tuple(Delay(e.duration_s) if isinstance(e, ShapedPulse) else e
+                   for e in sequence.events)
+    return Sequence(sequence.name, events, dict(sequence.timings_s))

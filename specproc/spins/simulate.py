@@ -52,7 +52,13 @@ from specproc.spins.operators import (
     composite_spins,
     product_rotation,
 )
-from specproc.spins.sequences import Delay, Pulse, Sequence, ShapedPulse
+from specproc.spins.sequences import (
+    Delay,
+    Pulse,
+    Sequence,
+    ShapedPulse,
+    without_shaped_pulses,
+)
 from specproc.spins.systems import Coupling, GaussianPeak, Macromolecule, Metabolite, SpinGroup
 
 __all__ = [
@@ -354,9 +360,7 @@ def sequence_singlet_amplitude(sequence: Sequence) -> float:
 def _receiver(sequence: Sequence) -> complex:
     # the receiver phase is set by the hard pulses: editing pulses (shaped, selective) leave it
     # alone, so ON and OFF sub-spectra of an edited scan share one phase
-    plain = tuple(Delay(e.duration_s) if isinstance(e, ShapedPulse) else e
-                  for e in sequence.events)
-    ref = _reference_phase(Sequence(sequence.name, plain, dict(sequence.timings_s)))
+    ref = _reference_phase(without_shaped_pulses(sequence))
     if abs(ref) < 1e-12:
         raise InvalidInputError(f"the {sequence.name} sequence gives no signal from a singlet")
     return abs(ref) / ref  # multiply by this to make the singlet echo real and positive
