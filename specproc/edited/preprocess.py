@@ -34,7 +34,7 @@ from specproc.edited.conditions import EditConditions, edit_conditions
 from specproc.errors import InvalidInputError
 from specproc.preprocess.align import apply_registration, register_transients
 from specproc.preprocess.phase import phase_scan
-from specproc.preprocess.pipeline import PreprocessResult, run_pipeline
+from specproc.preprocess.pipeline import PreprocessResult, run_pipeline, step_details
 from specproc.preprocess.reference import reference_scan
 
 __all__ = ["ALIGN_WINDOW_PPM", "EditedSpectra", "preprocess_edited", "split_conditions"]
@@ -120,23 +120,15 @@ def _transients(scan: Scan) -> int:
     return 1 if axis is None else int(scan.data.shape[axis])
 
 
-def _record(scan: Scan, method: str) -> dict[str, Any] | None:
-    for record in reversed(scan.provenance):
-        if record.get("Method") == method:
-            details = record.get("Details")
-            return details if isinstance(details, dict) and not details.get("skipped") else None
-    return None
-
-
 def _as_off(on: Scan, off: Scan) -> Scan:
     """ON with the frequency referencing and phase correction that were applied to OFF."""
-    ref = _record(off, "frequency referencing")
-    if ref is not None:
+    ref = step_details(off, "frequency referencing")
+    if ref and not ref.get("skipped"):
         on = reference_scan(on, offset_ppm=float(ref["offset_ppm"]),
                             apply_to=ref.get("apply_to", "fid"),
                             details={"note": "the OFF sub-spectrum's shift"})
-    phase = _record(off, "phase correction")
-    if phase is not None:
+    phase = step_details(off, "phase correction")
+    if phase and not phase.get("skipped"):
         on = phase_scan(on, method="manual", p0_deg=float(phase["p0_deg"]),
                         p1_deg_per_ppm=float(phase.get("p1_deg_per_ppm", 0.0)),
                         pivot_ppm=float(phase.get("pivot_ppm", 4.65)),

@@ -54,7 +54,7 @@ from specproc.preprocess.reference import (
 from specproc.preprocess.water import HLSVD_SOLVERS, remove_water_scan
 from specproc.sanity import check_signal
 
-__all__ = ["PreprocessResult", "TransientReport", "run_pipeline"]
+__all__ = ["PreprocessResult", "TransientReport", "run_pipeline", "step_details"]
 
 _TRANSIENT_AXES = ("DIM_DYN", "DIM_MEAS")
 _SUPPORTED_AXES = ("DIM_COIL", "DIM_DYN", "DIM_MEAS", "DIM_PHASE_CYCLE")
@@ -227,7 +227,7 @@ def _skip(scan: Scan, method: str, note: str, notes: list[str]) -> Scan:
     return scan.with_step(method, {"skipped": True, "note": note})
 
 
-def _last_record(scan: Scan, method: str, since: int = 0) -> dict[str, Any] | None:
+def step_details(scan: Scan, method: str, since: int = 0) -> dict[str, Any] | None:
     """Details of the latest provenance record of ``method`` among records ``since`` on."""
     for record in reversed(scan.provenance[since:]):
         details = record.get("Details", {})
@@ -295,12 +295,12 @@ def _transient_report(scan: Scan, n_transients: int, since: int = 0) -> Transien
     phases = np.full(n_transients, np.nan)
     scores = np.full(n_transients, np.nan)
     kept = np.ones(n_transients, dtype=bool)
-    align = _last_record(scan, "frequency and phase drift correction", since)
+    align = step_details(scan, "frequency and phase drift correction", since)
     if align and not align.get("skipped"):
         idx = align["transient_index"]
         shifts[idx] = align["shifts_hz"]
         phases[idx] = align["phases_deg"]
-    outliers = _last_record(scan, "outlier transient rejection", since)
+    outliers = step_details(scan, "outlier transient rejection", since)
     if outliers and not outliers.get("skipped"):
         scores[outliers["transient_index"]] = outliers["scores"]
         kept[outliers["dropped"]] = False
@@ -359,7 +359,7 @@ def run_pipeline(
             passes=drift["passes"], fit_duration_s=drift["fit_duration_s"],
             max_shift_hz=drift["max_shift_hz"],
         )
-        record = _last_record(scan, "frequency and phase drift correction")
+        record = step_details(scan, "frequency and phase drift correction")
         if record and record.get("skipped"):
             notes.append(f"frequency and phase drift correction: {record['note']}")
     after = np.array(scan.data)
@@ -369,7 +369,7 @@ def run_pipeline(
         scan = reject_outliers_scan(scan, threshold=outlier["threshold"],
                                     window_ppm=_window(outlier["window_ppm"]),
                                     fit_duration_s=outlier["fit_duration_s"])
-        record = _last_record(scan, "outlier transient rejection")
+        record = step_details(scan, "outlier transient rejection")
         if record and record.get("skipped"):
             notes.append(f"outlier transient rejection: {record['note']}")
     report = _transient_report(scan, n_transients, first_record)
