@@ -502,6 +502,7 @@ def analyse_scan(
     config: Any = None,
     protocol: Any = None,
     title: str | None = None,
+    preprocessing: Any = None,
 ) -> ScanResult:
     """Analyse one scan: preprocessing, basis, fit, quantification, QC and notes.
 
@@ -530,6 +531,11 @@ def analyse_scan(
         this protocol (a cohort run shares one basis file per protocol); it is then recorded.
     title : str, optional
         Label of the scan (default from the file name).
+    preprocessing : PreprocessResult, optional
+        The result of :func:`specproc.preprocess.pipeline.run_pipeline` for ``scan``, ``water``
+        and ``config``, when the caller has it already (the edited analysis preprocesses the
+        OFF sub-spectrum together with ON); it is then used instead of running the pipeline
+        again.
 
     Returns
     -------
@@ -601,7 +607,8 @@ def analyse_scan(
         used_basis = None
         origin = simulated
 
-    pre = run_pipeline(scan, water=water, config=cfg)
+    pre = (preprocessing if preprocessing is not None
+           else run_pipeline(scan, water=water, config=cfg))
     notes.extend(pre.notes)
     if used_basis is None:
         used_basis = used_protocol.simulate()

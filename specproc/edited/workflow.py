@@ -95,13 +95,14 @@ def analyse_edited_scan(
     if basis is None:
         basis = simulate_for_protocol(protocol, conditions, dwell_s=spectra.off.dwell_s,
                                       n_points=spectra.off.n_points)
-    # the OFF sub-spectrum through the ordinary analysis, from its raw transients with the
-    # settings that made spectra.off (so its QC and figures show the real preprocessing)
+    # the OFF sub-spectrum through the ordinary analysis: its raw transients, the settings and
+    # the preprocessing that made spectra.off (so its QC and figures show the real steps)
     off_input = spectra.off_input if spectra.off_input is not None else spectra.off
     result = analyse_scan(off_input.replace(sequence="press"), water, tissue=tissue,
                           basis=dataclasses.replace(basis.off, sequence="press"),
                           config=spectra.off_config or cfg, protocol=protocol,
-                          title=title if title is not None else _title(scan))
+                          title=title if title is not None else _title(scan),
+                          preprocessing=spectra.off_result)
     fit = result.fit
     residue = non_edited_residue(result.preprocessing.scan, fit, basis)
     diff_fit = fit_difference(spectra.diff.replace(data=np.asarray(spectra.diff.data) - residue),
