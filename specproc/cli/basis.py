@@ -115,13 +115,14 @@ def simulate_command(
 def _main_peaks(result: BasisSet, index: int, count: int = 3) -> list[float]:
     """Positions (ppm) of the strongest peaks of a member's magnitude spectrum (2 Hz broadened)."""
     import numpy as np
-    from scipy.signal import find_peaks
+
+    from specproc.peaks import peak_indices
 
     spec = np.abs(result.spectrum(lb_hz=2.0)[index])
     ppm = result.ppm()
     if spec.max() <= 0:
         return []
-    peaks, _ = find_peaks(spec, height=0.2 * spec.max())
+    peaks = peak_indices(spec, min_height=0.2 * spec.max())
     best = peaks[np.argsort(spec[peaks])[::-1][:count]]
     return sorted((float(ppm[i]) for i in best), reverse=True)
 

@@ -10,8 +10,10 @@ line shape and the FID length itself (a window would correlate the noise of neig
 * Gaussian window ``exp(-(π G t)² / (4 ln 2))``: the spectrum is convolved with a Gaussian of FWHM
   G Hz. Applied with :func:`nmrglue.process.proc_base.gmb` (``exp(-a n - b n²)``,
   ``b = (π G dwell)² / (4 ln 2)``).
-* Zero-filling appends zeros (:func:`nmrglue.process.proc_base.zf_size`): a finer spectral grid,
-  no new information.
+* Zero-filling appends zeros (:func:`specproc.preprocess.transform.zero_fill`): a finer spectral
+  grid, no new information.
+
+nmrglue is imported only when a window is applied (it loads scipy.signal, tenths of a second).
 
 References
 ----------
@@ -24,11 +26,11 @@ from __future__ import annotations
 from typing import Literal
 
 import numpy as np
-from nmrglue.process import proc_base
 
 from specproc._versions import library_versions
 from specproc.data import Scan
 from specproc.errors import InvalidInputError
+from specproc.preprocess.transform import zero_fill
 
 __all__ = [
     "apodize_exponential",
@@ -53,6 +55,8 @@ def apodize_exponential(fid: np.ndarray, *, lb_hz: float, dwell_s: float) -> np.
     dwell_s : float
         Sampling interval, s.
     """
+    from nmrglue.process import proc_base
+
     data = np.asarray(fid)
     if not np.iscomplexobj(data):
         data = data.astype(np.complex128)
@@ -63,21 +67,13 @@ def apodize_gaussian(fid: np.ndarray, *, gb_hz: float, dwell_s: float) -> np.nda
     """Multiply by ``exp(-(π gb_hz t)² / (4 ln 2))``: Gaussian broadening of FWHM ``gb_hz``."""
     if gb_hz < 0:
         raise InvalidInputError(f"the Gaussian broadening must be >= 0 Hz, got {gb_hz}")
+    from nmrglue.process import proc_base
+
     data = np.asarray(fid)
     if not np.iscomplexobj(data):
         data = data.astype(np.complex128)
     b = (np.pi * float(gb_hz) * float(dwell_s)) ** 2 / (4 * np.log(2))
     return proc_base.gmb(data, a=0.0, b=b)
-
-
-def zero_fill(fid: np.ndarray, *, n_points: int) -> np.ndarray:
-    """Append zeros to ``n_points`` points on the last axis."""
-    data = np.asarray(fid)
-    if int(n_points) < data.shape[-1]:
-        raise InvalidInputError(
-            f"cannot zero-fill {data.shape[-1]} points to fewer ({int(n_points)})"
-        )
-    return proc_base.zf_size(data, int(n_points))
 
 
 def apodize_scan(scan: Scan, *, kind: WindowKind = "exponential", lw_hz: float = 2.0) -> Scan:

@@ -9,8 +9,8 @@ Automatic zero-order phase:
 
 ``"peak"``
     The largest peaks (local maxima of the magnitude spectrum inside a ppm window with a
-    prominence of at least 5 % of the largest, typically the NAA, creatine and choline
-    singlets) are made absorptive and positive: ``p0 = -arg Σ_k S(δ_k)``
+    prominence of at least 5 % of the largest, :mod:`specproc.peaks`; typically the NAA,
+    creatine and choline singlets) are made absorptive and positive: ``p0 = -arg Σ_k S(δ_k)``
     (their complex values, interpolated at the magnitude maxima of the zero-filled spectrum,
     summed, so the largest peaks weigh most). Common practice.
 ``"acme"``
@@ -37,12 +37,11 @@ from __future__ import annotations
 from typing import Literal
 
 import numpy as np
-from nmrglue.process import proc_autophase
-from scipy.signal import find_peaks
 
 from specproc._versions import library_versions
 from specproc.data import Scan
 from specproc.errors import InvalidInputError
+from specproc.peaks import peak_indices
 from specproc.preprocess.transform import ppm_axis, ppm_window_mask, to_fid, to_spectrum
 
 __all__ = [
@@ -164,12 +163,14 @@ def estimate_zero_order_phase(
     if method == "peak":
         magnitude = np.abs(spec)
         # peaks standing out by at least 5 % of the largest: no ripples on a tail
-        peaks, _ = find_peaks(magnitude, prominence=0.05 * float(magnitude.max()))
+        peaks = peak_indices(magnitude, min_prominence=0.05 * float(magnitude.max()))
         if peaks.size == 0:
             peaks = np.array([int(np.argmax(magnitude))])
         top = peaks[np.argsort(magnitude[peaks])[::-1][: max(1, int(n_peaks))]]
         return float(-np.degrees(np.angle(sum(_value_at_peak(spec, int(k)) for k in top))))
     if method == "acme":
+        from nmrglue.process import proc_autophase  # loads scipy.signal: only when asked
+
         def score(ph: np.ndarray, data: np.ndarray) -> float:
             return acme_score(np.real(data * np.exp(1j * np.radians(ph[0]))))
 
@@ -222,5 +223,6 @@ def phase_scan(
     details = {"method": method, "window_ppm": [float(v) for v in window_ppm],
                "p0_deg": p0, "p1_deg_per_ppm": float(p1_deg_per_ppm),
                "pivot_ppm": float(pivot_ppm),
-               "libraries": library_versions("numpy", "scipy", "nmrglue")}
+               "libraries": library_versions(*(("numpy", "scipy", "nmrglue") if method == "acme"
+                                               else ("numpy",)))}
     return scan.with_step("phase correction", details, data=data.astype(scan.data.dtype))

@@ -13,7 +13,6 @@ a positive frequency shift therefore moves peaks to lower ppm.
 from __future__ import annotations
 
 import numpy as np
-from nmrglue.process import proc_base
 
 from specproc.axes import freq_axis_hz, hz_to_ppm, ppm_axis, ppm_to_hz
 from specproc.errors import InvalidInputError
@@ -27,6 +26,7 @@ __all__ = [
     "shift_frequency",
     "to_fid",
     "to_spectrum",
+    "zero_fill",
 ]
 
 
@@ -48,10 +48,27 @@ def ppm_window_mask(ppm: np.ndarray, window_ppm: tuple[float, float]) -> np.ndar
     return mask
 
 
+def zero_fill(fid: np.ndarray, *, n_points: int) -> np.ndarray:
+    """Append zeros to ``n_points`` points on the last axis (the dtype kept).
+
+    Raises
+    ------
+    InvalidInputError
+        If ``n_points`` is below the number of points.
+    """
+    data = np.asarray(fid)
+    n = int(n_points)
+    if n < data.shape[-1]:
+        raise InvalidInputError(f"cannot zero-fill {data.shape[-1]} points to fewer ({n})")
+    zeros = np.zeros((*data.shape[:-1], n - data.shape[-1]), dtype=data.dtype)
+    return np.concatenate((data, zeros), axis=-1)
+
+
 def to_spectrum(fid: np.ndarray, *, n_points: int | None = None) -> np.ndarray:
     """Spectrum of an FID in the NIfTI-MRS convention, ``fftshift(fft(fid))`` on the last axis.
 
-    Uses :func:`nmrglue.process.proc_base.fft` (same definition) after optional zero-filling.
+    After optional zero-filling (:func:`zero_fill`); the spectrum keeps the complex dtype of
+    the FID (a real FID gives complex128).
 
     Parameters
     ----------
@@ -65,15 +82,12 @@ def to_spectrum(fid: np.ndarray, *, n_points: int | None = None) -> np.ndarray:
     spectrum : (..., n_points) complex ndarray
     """
     data = np.asarray(fid)
-    if not np.iscomplexobj(data):  # nmrglue keeps the input dtype: a real input would lose imag
+    if not np.iscomplexobj(data):  # a real input would otherwise lose its imaginary part
         data = data.astype(np.complex128)
     if n_points is not None and int(n_points) != data.shape[-1]:
-        if int(n_points) < data.shape[-1]:
-            raise InvalidInputError(
-                f"cannot zero-fill {data.shape[-1]} points to fewer ({int(n_points)})"
-            )
-        data = proc_base.zf_size(data, int(n_points))
-    return proc_base.fft(data)
+        data = zero_fill(data, n_points=int(n_points))
+    spectrum = np.fft.fft(data, axis=-1).astype(data.dtype, copy=False)
+    return np.fft.fftshift(spectrum, axes=-1)
 
 
 def to_fid(spectrum: np.ndarray) -> np.ndarray:
