@@ -13,7 +13,8 @@ batch worker processes.
 
 threadpoolctl finds the libraries by inspecting the process, so a controller is made on each
 entry (about a millisecond): one made before scipy was imported would miss scipy's own
-OpenBLAS.
+OpenBLAS. For the same reason numpy and scipy.linalg are imported before the controller is made:
+a per-scan function imports its modules inside its body, after the limit was set.
 """
 
 from __future__ import annotations
@@ -70,6 +71,8 @@ def blas_threads(limit: int | None = None) -> Iterator[None]:
     if not threads:
         yield
         return
+    import numpy  # noqa: F401  (both BLAS libraries loaded, so that both are limited)
+    import scipy.linalg  # noqa: F401
     from threadpoolctl import ThreadpoolController
 
     with ThreadpoolController().limit(limits=int(threads), user_api="blas"):

@@ -52,3 +52,29 @@ def test_preprocessing_runs_at_one_thread(monkeypatch):
         -np.pi * 6 * t)
     pipeline.run_pipeline(Scan(fid, dwell_s=2.5e-4, spectrometer_mhz=123.2))
     assert seen and all(count == 1 for count in seen[0])
+
+
+_FRESH_PROBE = """
+import json
+from threadpoolctl import threadpool_info
+from specproc._threads import blas_threads
+with blas_threads():
+    import scipy.linalg  # first imported inside the context, as a per-scan function does
+    print(json.dumps([p["num_threads"] for p in threadpool_info() if p["user_api"] == "blas"]))
+"""
+
+
+def test_libraries_first_loaded_inside_the_context_are_limited():
+    import json
+    import os
+    import subprocess
+    import sys
+
+    env = {k: v for k, v in os.environ.items()
+           if k not in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS",
+                        BLAS_THREADS_ENV)}
+    proc = subprocess.run([sys.executable, "-c", _FRESH_PROBE], capture_output=True, text=True,
+                          env=env, timeout=120)
+    assert proc.returncode == 0, proc.stderr
+    counts = json.loads(proc.stdout.strip().splitlines()[-1])
+    assert counts and all(count == 1 for count in counts)  # numpy's and scipy's own OpenBLAS
