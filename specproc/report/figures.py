@@ -15,8 +15,8 @@ from typing import Any
 
 from specproc._atomic import write_bytes
 
-__all__ = ["figure_pdf_bytes", "figure_png_bytes", "plain_text", "png_data_uri",
-           "save_figure_pdf"]
+__all__ = ["PNG_COMPRESS_LEVEL", "figure_pdf_bytes", "figure_png_bytes", "plain_text",
+           "png_data_uri", "save_figure_pdf"]
 
 
 def plain_text(text: str) -> str:
@@ -26,10 +26,16 @@ def plain_text(text: str) -> str:
     return safe.replace("$", r"\$")
 
 
+#: zlib level of the PNG files: 3 of 9 encodes about a third faster than Pillow's default 6
+#: (a tenth of the cost of a figure), for files a few per cent larger; the pixels are the same.
+PNG_COMPRESS_LEVEL = 3
+
+
 def figure_png_bytes(fig: Any, *, dpi: int = 110) -> bytes:
-    """PNG image of a matplotlib figure."""
+    """PNG image of a matplotlib figure (Agg), zlib level :data:`PNG_COMPRESS_LEVEL`."""
     buffer = io.BytesIO()
-    fig.savefig(buffer, format="png", dpi=dpi)
+    fig.savefig(buffer, format="png", dpi=dpi,
+                pil_kwargs={"compress_level": PNG_COMPRESS_LEVEL})
     return buffer.getvalue()
 
 

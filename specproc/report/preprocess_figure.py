@@ -9,7 +9,6 @@ on their own axis); the ppm axis decreases to the right, as is the custom.
 
 from __future__ import annotations
 
-import io
 import os
 from typing import Any
 
@@ -19,7 +18,7 @@ from specproc._atomic import write_bytes
 from specproc.preprocess.pipeline import PreprocessResult
 from specproc.preprocess.transform import ppm_axis, to_spectrum
 from specproc.report import palette
-from specproc.report.figures import plain_text
+from specproc.report.figures import figure_png_bytes, plain_text
 
 __all__ = ["render_preprocess_figure", "save_preprocess_figure"]
 
@@ -59,6 +58,8 @@ def render_preprocess_figure(result: PreprocessResult, *, title: str | None = No
     import matplotlib
 
     matplotlib.use("Agg", force=False)
+    from matplotlib.collections import LineCollection
+    from matplotlib.colors import to_rgba
     from matplotlib.figure import Figure
 
     scan = result.scan
@@ -82,11 +83,20 @@ def render_preprocess_figure(result: PreprocessResult, *, title: str | None = No
         ppm, spectra = _spectra(np.atleast_2d(fids), scan, result.transients_centre_ppm)
         show = (ppm >= _PPM_RANGE[0]) & (ppm <= _PPM_RANGE[1])
         colours = matplotlib.colormaps["viridis"](np.linspace(0, 1, max(2, spectra.shape[0])))
-        for k, spectrum in enumerate(spectra):
-            dropped = kept is not None and k < kept.size and not kept[k]
-            ax.plot(ppm[show], spectrum.real[show], lw=0.6,
-                    color="0.55" if dropped else colours[k], ls="--" if dropped else "-",
-                    alpha=0.8)
+        n = spectra.shape[0]
+        dropped = np.zeros(n, dtype=bool)
+        if kept is not None:
+            m = min(n, kept.size)
+            dropped[:m] = ~np.asarray(kept[:m], dtype=bool)
+        colours = colours[:n].copy()
+        colours[dropped] = to_rgba("0.55")
+        colours[:, 3] = 0.8
+        # one collection of all the transients, drawn in their order (one artist, not n)
+        segments = list(np.stack(np.broadcast_arrays(ppm[show], spectra.real[:, show]), axis=-1))
+        ax.add_collection(LineCollection(
+            segments, colors=colours, linewidths=0.6, capstyle="projecting",
+            linestyles=["--" if d else "-" for d in dropped]))
+        ax.autoscale_view()
     index = np.arange(report.n_transients) if report is not None else np.array([])
     for ax, values, unit, name in ((ax_freq, None if report is None else report.shifts_hz,
                                     "Hz", "frequency offset"),
@@ -114,6 +124,4 @@ def render_preprocess_figure(result: PreprocessResult, *, title: str | None = No
         ax.set_yticks([])
     if title:
         fig.suptitle(plain_text(title), fontsize=11)
-    buffer = io.BytesIO()
-    fig.savefig(buffer, format="png", dpi=100)
-    return buffer.getvalue()
+    return figure_png_bytes(fig, dpi=100)
