@@ -24,6 +24,8 @@ def to_jsonable(value: Any) -> Any:
     if isinstance(value, np.ndarray):
         if np.iscomplexobj(value):
             return {"re": to_jsonable(value.real), "im": to_jsonable(value.imag)}
+        if value.dtype.kind in "biu" or (value.dtype.kind == "f" and np.isfinite(value).all()):
+            return value.tolist()  # plain ints, bools and finite floats already: no walk
         return to_jsonable(value.tolist())
     if isinstance(value, np.generic):
         return to_jsonable(value.item())

@@ -242,13 +242,24 @@ def _tables(table: dict[str, Any], key: str, path: Path) -> list[dict[str, Any]]
     return raw
 
 
-def _read_toml(path: Path) -> dict[str, Any]:
+def _read_text(path: Path) -> str:
     try:
-        return tomllib.loads(path.read_text(encoding="utf-8"))
+        return path.read_text(encoding="utf-8")
     except (OSError, UnicodeDecodeError) as exc:
         raise InvalidInputError(f"cannot read: {exc}", path) from None
+
+
+def _read_toml(path: Path, text: str | None = None) -> dict[str, Any]:
+    try:
+        return tomllib.loads(_read_text(path) if text is None else text)
     except tomllib.TOMLDecodeError as exc:
         raise InvalidInputError(f"not valid TOML: {exc}", path) from None
+
+
+#: Parsed definitions by (file, its text): a scan reads the same files for its basis and for
+#: the provenance of its results; checking and parsing them costs tens of ms each time. The
+#: values are frozen dataclasses, safe to share.
+_PARSED: dict[tuple[str, str], Metabolite] = {}
 
 
 def load_metabolite(path: str | os.PathLike[str]) -> Metabolite:
@@ -265,7 +276,11 @@ def load_metabolite(path: str | os.PathLike[str]) -> Metabolite:
         source or place; :func:`specproc.provenance.parse_provenance`).
     """
     path = Path(path)
-    table = _read_toml(path)
+    text = _read_text(path)
+    cached = _PARSED.get((str(path), text))
+    if cached is not None:
+        return cached
+    table = _read_toml(path, text)
     refs = read_references(table, path)
     name = _require(table, "name", str, path)
     if not name.strip():
@@ -348,6 +363,7 @@ def load_metabolite(path: str | os.PathLike[str]) -> Metabolite:
             raise InvalidInputError(
                 f"coupled groups {labels_} must have the same fraction (one molecule)", path
             )
+    _PARSED[(str(path), text)] = met
     return met
 
 
