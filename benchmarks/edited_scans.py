@@ -114,7 +114,8 @@ def _integral(fid: np.ndarray, ppm_lo: float, ppm_hi: float, mhz: float) -> floa
 
 def make_edited_scan(seed: int, *, n_pairs: int = 160, snr: float = 160.0,
                      source: str = "invented-edited", drift: bool = True,
-                     residual_water: bool = True, motion: bool = True) -> EditedScan:
+                     residual_water: bool = True, motion: bool = True,
+                     inhomogeneous: bool = True, macromolecules: bool = True) -> EditedScan:
     """An invented MEGA-PRESS scan: ``(DIM_EDIT = 2, DIM_DYN = n_pairs)`` raw transients.
 
     Parameters
@@ -125,6 +126,14 @@ def make_edited_scan(seed: int, *, n_pairs: int = 160, snr: float = 160.0,
         ON/OFF pairs (320 transients for 160 pairs).
     snr : float
         NAA peak height over the noise SD of the averaged OFF spectrum (real part).
+    drift, residual_water, motion : bool
+        Frequency drift and phase jitter, residual water, the motion-corrupted pair.
+    inhomogeneous : bool
+        Sub-voxel field components (asymmetric lines); False: a Lorentzian broadening of half
+        the drawn width instead (line shapes the fit model can represent exactly).
+    macromolecules : bool
+        The macromolecule lines (common, co-edited and partly inverted); False: none, and
+        GABA+ is GABA.
     """
     rng = np.random.default_rng(seed)
     mhz = larmor_mhz(FIELD_T)
@@ -134,6 +143,8 @@ def make_edited_scan(seed: int, *, n_pairs: int = 160, snr: float = 160.0,
     weight = {m: np.exp(-TE_S / t2[m]) * (1 - np.exp(-TR_S / T1_S)) for m in METABOLITES}
     width_hz = rng.uniform(5.0, 8.0)
     shape = _field_shape(t, rng, width_hz)
+    if not inhomogeneous:
+        shape = np.exp(-np.pi * 0.5 * width_hz * t)
     sub = {}
     for name, ppm in (("on", ON_PPM), ("off", OFF_PPM)):
         lines = _line_lists(ppm)
@@ -151,6 +162,8 @@ def make_edited_scan(seed: int, *, n_pairs: int = 160, snr: float = 160.0,
     # the ON pulse at 1.9 ppm inverts part of the 1.7 ppm MM and co-edits its 3.0 ppm partner
     co_edit = mm_scale * rng.uniform(0.5, 0.8) * _mm_fid(t, mhz, [(3.00, 0.13, 1.0)])
     partly_inverted = -0.6 * mm_scale * _mm_fid(t, mhz, [(1.68, 0.10, 0.9)])
+    if not macromolecules:
+        mm, co_edit, partly_inverted = (np.zeros(N_POINTS, complex) for _ in range(3))
     sub["on"] = (sub["on"] + mm + co_edit + partly_inverted) * shape
     sub["off"] = (sub["off"] + mm) * shape
 
