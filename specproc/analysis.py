@@ -503,6 +503,7 @@ def analyse_scan(
     protocol: Any = None,
     title: str | None = None,
     preprocessing: Any = None,
+    phantom: bool | None = None,
 ) -> ScanResult:
     """Analyse one scan: preprocessing, basis, fit, quantification, QC and notes.
 
@@ -536,6 +537,11 @@ def analyse_scan(
         and ``config``, when the caller has it already (the edited analysis preprocesses the
         OFF sub-spectrum together with ON); it is then used instead of running the pipeline
         again.
+    phantom : bool, optional
+        The scan is of a phantom (default: what ``protocol`` says, else no). A phantom is
+        fitted with one expected width for every metabolite (``[fit] width_prior = "none"``,
+        :data:`specproc.protocol.PHANTOM_WIDTH_RULE`); the configuration recorded with the
+        result says so.
 
     Returns
     -------
@@ -550,7 +556,7 @@ def analyse_scan(
     from specproc.basis import BasisSet
     from specproc.fit import fit_spectrum
     from specproc.preprocess.pipeline import run_pipeline
-    from specproc.protocol import resolve_protocol
+    from specproc.protocol import phantom_fit_config, resolve_protocol
     from specproc.qc import QCThresholds, qc_from_scan
     from specproc.quantify import (
         Acquisition,
@@ -606,6 +612,13 @@ def analyse_scan(
             used_protocol = resolve_protocol(scan, config=cfg)
         used_basis = None
         origin = simulated
+
+    if phantom is None:
+        phantom = bool(getattr(used_protocol, "phantom", False))
+    if phantom:
+        cfg, phantom_note = phantom_fit_config(cfg)
+        if phantom_note:
+            notes.append(phantom_note)
 
     pre = (preprocessing if preprocessing is not None
            else run_pipeline(scan, water=water, config=cfg))

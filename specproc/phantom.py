@@ -506,7 +506,8 @@ def analyse_phantom(
     if basis is None:
         protocol = resolve_protocol(scan, config=cfg, metabolites=list(phantom.concentrations_mm),
                                     phantom=True)
-    result = analyse_scan(scan, water, basis=basis, protocol=protocol, config=cfg)
+    result = analyse_scan(scan, water, basis=basis, protocol=protocol, config=cfg,
+                          phantom=True)
     pre, fit = result.preprocessing, result.fit
     notes: list[str] = []
     amp = {n.lower(): float(a) for n, a in zip(fit.names, fit.amplitudes, strict=True)}

@@ -32,6 +32,16 @@ Macromolecules
 Unless chosen explicitly, the macromolecule components are added when TE is below
 :data:`SHORT_TE_S` (common practice: macromolecule signals are visible at short TE and decay
 by TE ≈ 60 ms or so), and never for a phantom (:data:`PHANTOM_RULE`).
+
+Phantoms
+--------
+A scan is of a phantom when its caller says so (manifest column ``kind = phantom``,
+``specproc fit --phantom``, ``specproc phantom``); :attr:`Protocol.phantom` carries it to the
+analysis. Besides the basis without macromolecules, a phantom is fitted with one expected
+Lorentzian width for every metabolite (:data:`PHANTOM_WIDTH_RULE`): the relaxation table holds
+tissue T2, whose differences (e.g. NAA about 0.25 s against creatine about 0.15 s at 3 T) do
+not exist in a solution, where every metabolite relaxes slowly (T2 of several hundred ms) and
+the line widths are set by the field inhomogeneity shared by all of them.
 """
 
 from __future__ import annotations
@@ -46,11 +56,13 @@ from specproc.errors import InvalidInputError
 __all__ = [
     "MACROMOLECULE_RULE",
     "PHANTOM_RULE",
+    "PHANTOM_WIDTH_RULE",
     "SHORT_TE_S",
     "TIMINGS_HEADER_KEY",
     "TIMING_KEYS",
     "Protocol",
     "parse_timings",
+    "phantom_fit_config",
     "resolve_protocol",
 ]
 
@@ -63,6 +75,12 @@ MACROMOLECULE_RULE = f"included when TE < {SHORT_TE_S * 1e3:g} ms (common practi
 
 #: The rule for a phantom (a solution holds no macromolecules).
 PHANTOM_RULE = "none in a phantom (a solution holds no macromolecules)"
+
+#: The line-width rule for a phantom (the fit's ``width_prior`` becomes ``"none"``).
+PHANTOM_WIDTH_RULE = (
+    "phantom: one expected Lorentzian width for every metabolite (width_prior \"none\"; the "
+    "relaxation table's T2 differences are those of tissue, not of a solution)"
+)
 
 #: NIfTI-MRS header user key holding the sub-timings.
 TIMINGS_HEADER_KEY = "specproc_timings"
@@ -158,6 +176,9 @@ class Protocol:
         ``"header"`` or ``"assumed: ..."`` (keys ``te1_s``, ``tm_s``, ``delays_s``).
     macromolecule_source : str
         ``"chosen"`` or the rule (:data:`MACROMOLECULE_RULE`).
+    phantom : bool
+        The scan is of a phantom (see the module docstring). Not a simulation input: it does
+        not change the basis key, only how the analysis fits (:data:`PHANTOM_WIDTH_RULE`).
     """
 
     sequence: str
@@ -173,6 +194,7 @@ class Protocol:
     delays_s: tuple[float, ...] | None = None
     timing_sources: Mapping[str, str] = field(default_factory=dict)
     macromolecule_source: str = MACROMOLECULE_RULE
+    phantom: bool = False
 
     def _inputs(self) -> dict[str, Any]:
         return {
@@ -191,7 +213,7 @@ class Protocol:
     def to_dict(self) -> dict[str, Any]:
         """Plain JSON-able dict (for fit.json): the inputs and where the timings came from."""
         return {**self._inputs(), "timing_sources": dict(self.timing_sources),
-                "macromolecule_source": self.macromolecule_source}
+                "macromolecule_source": self.macromolecule_source, "phantom": self.phantom}
 
     def key(self) -> str:
         """Short content hash of the protocol, the specproc and engine versions and the
@@ -224,6 +246,34 @@ class Protocol:
             te2 = (self.te_s or 0.0) - value
             return f"TE1 {value * 1e3:g} ms, TE2 {te2 * 1e3:g} ms ({source})"
         return f"TM {value * 1e3:g} ms ({source})"
+
+
+def phantom_fit_config(config: Mapping[str, Any]) -> tuple[dict[str, Any], str]:
+    """The configuration a phantom is fitted with, and the note that says what changed.
+
+    A phantom's metabolites share one expected Lorentzian width: the ``[fit] width_prior`` of
+    ``"relaxation"`` (widths 1/(π T2) from the tissue relaxation table) becomes ``"none"``
+    (:data:`PHANTOM_WIDTH_RULE`); every other setting is kept.
+
+    Parameters
+    ----------
+    config : mapping
+        A full (merged) configuration.
+
+    Returns
+    -------
+    config : dict
+        A copy with the phantom's fit setting (the input is not changed).
+    note : str
+        :data:`PHANTOM_WIDTH_RULE` when the width prior was changed, else ``""``.
+    """
+    out = dict(config)
+    fit = dict(out.get("fit") or {})
+    if fit.get("width_prior", "relaxation") == "none":
+        return out, ""
+    fit["width_prior"] = "none"
+    out["fit"] = fit
+    return out, PHANTOM_WIDTH_RULE
 
 
 def _header_timings(scan: Any) -> dict[str, Any]:
@@ -266,7 +316,8 @@ def resolve_protocol(
     macromolecules : bool, optional
         Add the macromolecule components (default: the rule, TE < :data:`SHORT_TE_S`).
     phantom : bool
-        The scan is of a phantom: no macromolecules unless ``macromolecules`` says so.
+        The scan is of a phantom: no macromolecules unless ``macromolecules`` says so, and
+        :attr:`Protocol.phantom` set (one expected width for every metabolite in the fit).
 
     Raises
     ------
@@ -352,7 +403,7 @@ def resolve_protocol(
         metabolites=None if metabolites is None else tuple(str(m) for m in metabolites),
         macromolecules=bool(macromolecules), te1_s=timings.get("te1_s"),
         tm_s=timings.get("tm_s"), delays_s=timings.get("delays_s"), timing_sources=sources,
-        macromolecule_source=mm_source,
+        macromolecule_source=mm_source, phantom=bool(phantom),
     )
     from specproc.spins.sequences import build_sequence
 

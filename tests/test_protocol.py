@@ -21,7 +21,14 @@ from specproc.config import load_config, merge_config
 from specproc.data import Scan
 from specproc.errors import InvalidInputError
 from specproc.io import load, save
-from specproc.protocol import MACROMOLECULE_RULE, PHANTOM_RULE, SHORT_TE_S, resolve_protocol
+from specproc.protocol import (
+    MACROMOLECULE_RULE,
+    PHANTOM_RULE,
+    PHANTOM_WIDTH_RULE,
+    SHORT_TE_S,
+    phantom_fit_config,
+    resolve_protocol,
+)
 
 MHZ = 123.2
 
@@ -84,6 +91,25 @@ def test_macromolecule_rule_and_members_from_the_config():
     assert resolve_protocol(_scan()).key() == resolve_protocol(_scan()).key()
     assert resolve_protocol(_scan()).key() != resolve_protocol(
         _scan(), option={"te1_s": 0.01}).key()
+
+
+def test_a_phantom_is_said_by_its_protocol_and_shares_the_basis_without_macromolecules():
+    phantom = resolve_protocol(_scan(), phantom=True)
+    assert phantom.phantom is True and phantom.to_dict()["phantom"] is True
+    assert resolve_protocol(_scan()).phantom is False
+    # not a simulation input: the same basis as a tissue scan fitted without macromolecules
+    assert phantom.key() == resolve_protocol(_scan(), macromolecules=False).key()
+
+
+def test_phantom_fit_config_sets_equal_expected_widths_and_keeps_the_rest():
+    cfg = merge_config({"fit": {"damping_sd_hz": 0.5}})
+    assert cfg["fit"]["width_prior"] == "relaxation"  # the default (tissue)
+    out, note = phantom_fit_config(cfg)
+    assert out["fit"]["width_prior"] == "none" and note == PHANTOM_WIDTH_RULE
+    assert out["fit"]["damping_sd_hz"] == 0.5 and out["qc"] == cfg["qc"]
+    assert cfg["fit"]["width_prior"] == "relaxation"  # the input is not changed
+    again, note = phantom_fit_config(out)
+    assert again["fit"]["width_prior"] == "none" and note == ""
 
 
 def test_header_key_written_by_nibabel_is_read_and_written_back(tmp_path):

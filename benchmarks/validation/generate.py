@@ -9,7 +9,8 @@ writes into OUTDIR (created; never commit it):
 * ``scans/<scan_id>_svs.nii.gz`` and ``scans/<scan_id>_ref.nii.gz``: raw transients (and coils)
   of the water-suppressed scan and of its unsuppressed water reference;
 * ``manifest.tsv``: the table for ``specproc batch`` (``scan``, ``water``, ``subject``,
-  ``scan_id``, tissue fractions, and ``te1_ms`` for the scans whose timing is given there);
+  ``scan_id``, tissue fractions, ``te1_ms`` for the scans whose timing is given there, and
+  ``kind = phantom`` for the phantoms, as a user marks them);
 * ``truth.json``: every drawn parameter of every scan and the true values;
 * ``truth.tsv``: one row per scan and measure with the relaxation-weighted ratio to tCr and,
   for tissue scans, the water-referenced concentration (mM of GM+WM tissue).
@@ -808,6 +809,7 @@ def generate(out_dir: str | Path, *, seed: int = DEFAULT_SEED, preset: str = "fu
             "gm": _cell(tissue.get("gm")), "wm": _cell(tissue.get("wm")),
             "csf": _cell(tissue.get("csf")),
             "te1_ms": _cell(spec.te1_s * 1e3 if spec.timing == "manifest" else None),
+            "kind": "phantom" if spec.phantom else "",
         })
         if progress:
             print(f"[{k + 1}/{len(specs)}] {spec.scan_id}", file=sys.stderr)

@@ -116,6 +116,33 @@ def subset_manifest(corpus: Path, n: int) -> Path:
     return path
 
 
+def manifest_with_kind(corpus: Path, manifest: Path, run_dir: Path) -> Path:
+    """The manifest to run: ``manifest`` itself, or, for a corpus written before the generator
+    marked its phantoms (no ``kind`` column), a copy in ``run_dir`` with absolute paths and
+    ``kind = phantom`` on the phantom rows (from ``truth.json``), as a user marks them."""
+    with open(manifest, newline="") as fh:
+        reader = csv.DictReader(fh, delimiter="\t")
+        fields = list(reader.fieldnames or [])
+        rows = list(reader)
+    if "kind" in fields:
+        return manifest
+    truth = json.loads((corpus / "truth.json").read_text())["scans"]
+    phantoms = {t["scan_id"] for t in truth if t["spec"]["phantom"]}
+    run_dir.mkdir(parents=True, exist_ok=True)
+    path = run_dir / "manifest-with-kind.tsv"
+    with open(path, "w", newline="") as fh:
+        writer = csv.DictWriter(fh, fieldnames=[*fields, "kind"], delimiter="\t",
+                                lineterminator="\n")
+        writer.writeheader()
+        for row in rows:
+            for key in ("scan", "water"):
+                if row.get(key):
+                    row[key] = str((manifest.parent / row[key]).resolve())
+            writer.writerow({**row, "kind": "phantom" if row["scan_id"] in phantoms else ""})
+    print(f"{manifest} has no kind column: running {path} (phantoms marked)", file=sys.stderr)
+    return path
+
+
 def run_batch(manifest: Path, run_dir: Path, workers: int) -> dict[str, float]:
     """``specproc batch MANIFEST -o RUNDIR --workers N``; wall and children's CPU time, s."""
     cmd = [*specproc_command(), "batch", str(manifest), "-o", str(run_dir),
@@ -141,9 +168,11 @@ def run_fit_cli(corpus: Path, manifest: Path, out_root: Path, workers: int) -> d
     env = dict(os.environ, OPENBLAS_NUM_THREADS="1", OMP_NUM_THREADS="1", MKL_NUM_THREADS="1")
 
     def one(row: dict[str, str]) -> int:
-        cmd = [*specproc_command(), "fit", str(corpus / row["scan"]), "--water",
-               str(corpus / row["water"]), "--te1-ms", row["te1_ms"],
+        cmd = [*specproc_command(), "fit", str(manifest.parent / row["scan"]), "--water",
+               str(manifest.parent / row["water"]), "--te1-ms", row["te1_ms"],
                "-o", str(out_root / row["scan_id"])]
+        if row.get("kind") == "phantom":
+            cmd.append("--phantom")
         for tissue in ("gm", "wm", "csf"):
             if row.get(tissue):
                 cmd += [f"--{tissue}", row[tissue]]
@@ -359,6 +388,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     cost = None
     fit_cost = None
     if not args.score_only:
+        manifest = manifest_with_kind(corpus, manifest, run_dir)
         cost = run_batch(manifest, run_dir, args.workers)
         if not args.no_fit_cli:
             fit_cost = run_fit_cli(corpus, manifest, run_dir / "fit-cli", args.workers)

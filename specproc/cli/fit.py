@@ -98,6 +98,9 @@ def tissue_option(gm: float | None, wm: float | None, csf: float | None
 @click.option("--macromolecules/--no-macromolecules", default=None,
               help="Add macromolecule/lipid members to a simulated basis "
                    f"(default: when TE < {SHORT_TE_S * 1e3:g} ms).")
+@click.option("--phantom", is_flag=True, default=False,
+              help="The scan is of a phantom: no macromolecules, and one expected line width "
+                   "for every metabolite (the relaxation table is of tissue).")
 @click.option("--title", default=None, help="Label of the scan (default: the file name).")
 @click.option("-o", "--output", "out_dir", required=True, metavar="OUTDIR",
               type=click.Path(file_okay=False, path_type=Path),
@@ -108,8 +111,8 @@ def fit_command(scan_file: Path, water_file: Path | None, gm: float | None, wm: 
                 anatomy: Path | None, basis_choice: str | None, config_file: Path | None,
                 field_t: float | None, te_ms: float | None, tr_ms: float | None,
                 sequence: str | None, te1_ms: float | None, tm_ms: float | None,
-                delays_ms: str | None, macromolecules: bool | None, title: str | None,
-                out_dir: Path) -> None:
+                delays_ms: str | None, macromolecules: bool | None, phantom: bool,
+                title: str | None, out_dir: Path) -> None:
     """Analyse SCAN: preprocess, fit, quantify, QC; write results, fit.json and report.html."""
     from specproc.analysis import analyse_scan, resolve_config, write_scan_outputs
     from specproc.batch.task import apply_overrides
@@ -149,10 +152,10 @@ def fit_command(scan_file: Path, water_file: Path | None, gm: float | None, wm: 
             raise InvalidInputError("basis file not found", basis)
     else:
         protocol = resolve_protocol(scan, field_t=field_t, option=timings, config=config,
-                                    macromolecules=macromolecules)
+                                    macromolecules=macromolecules, phantom=phantom)
     with naming(scan_file):
         result = analyse_scan(scan, water, tissue=tissue, basis=basis, protocol=protocol,
-                              config=config_file, title=title)
+                              config=config_file, title=title, phantom=phantom)
     files = write_scan_outputs(result, out_dir)
     for note in result.notes:
         click.echo(f"specproc: note: {note}", err=True)
