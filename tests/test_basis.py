@@ -259,3 +259,28 @@ def test_progress_callback_and_comma_separated_names():
     assert b.names[:2] == ("Cr", "NAA")
     assert [s[2] for s in seen] == list(b.names)
     assert seen[-1][:2] == (len(b.names), len(b.names))
+
+
+def _fwhm_hz_of(fid: np.ndarray, dwell_s: float, zero_fill: int = 16) -> float:
+    """FWHM of the absorption of one line's FID, Hz (half the first point, zero filled)."""
+    x = np.zeros(fid.size * zero_fill, dtype=complex)
+    x[: fid.size] = fid
+    x[0] *= 0.5
+    spec = np.fft.fft(x).real
+    above = np.flatnonzero(spec >= spec.max() / 2)
+    # a line near 0 Hz wraps around the FFT axis: count the points above half height
+    return above.size / (x.size * dwell_s)
+
+
+@pytest.mark.parametrize("field_t", [1.5, 3.0, 7.0])
+def test_macromolecule_widths_kept_in_hz_above_3_tesla(field_t):
+    # Outside reference: the FWHM of a Gaussian line exp(-(π F t)² / (4 ln 2)) is F (analytic;
+    # the spectrum from numpy's FFT). The widths of macromolecules.toml are those at 3 T: the
+    # basis line of MM1.22 (0.12 ppm) is 0.12 ppm wide at 1.5 and 3 T and keeps its 3 T width
+    # in Hz at 7 T (a ppm width would make it 36 Hz there, broader than the signal; methods §3).
+    b = simulate_basis(sequence="press", field_t=field_t, te_s=0.030, metabolites=["Cr"],
+                       macromolecules=True, dwell_s=1 / 4000, n_points=4096, centre_ppm=1.22,
+                       cache=False)
+    fwhm = _fwhm_hz_of(np.asarray(b.fids[b.index("MM1.22")]), b.dwell_s)
+    expected = 0.12 * larmor_mhz(min(field_t, 3.0))
+    assert fwhm == pytest.approx(expected, abs=0.1)

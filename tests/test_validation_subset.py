@@ -17,45 +17,16 @@ mismatch.
 
 from __future__ import annotations
 
-import importlib.util
-import json
-import os
-import subprocess
-import sys
-from pathlib import Path
-
 import numpy as np
 import pytest
-
-ROOT = Path(__file__).resolve().parents[1]
-VALIDATION = ROOT / "benchmarks" / "validation"
-
-
-def _module(name: str):
-    spec = importlib.util.spec_from_file_location(name, VALIDATION / f"{name}.py")
-    assert spec is not None and spec.loader is not None
-    module = importlib.util.module_from_spec(spec)
-    sys.modules[name] = module
-    spec.loader.exec_module(module)
-    return module
+from _validation import batch_on_corpus, validation_module
 
 
 @pytest.fixture(scope="module")
 def ci_run(tmp_path_factory: pytest.TempPathFactory) -> tuple[list[dict], dict]:
-    gen = _module("generate")
-    score = _module("score")
     corpus = tmp_path_factory.mktemp("validation-ci")
-    gen.generate(corpus, preset="ci")
-    run = corpus / "run"
-    env = {**os.environ, "SPECPROC_CACHE_DIR": str(corpus / "cache"),
-           "OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1"}
-    cmd = [*score.specproc_command(), "batch", str(corpus / "manifest.tsv"), "-o", str(run),
-           "--workers", "2", "--no-progress"]
-    proc = subprocess.run(cmd, env=env, capture_output=True, text=True, timeout=600)
-    assert proc.returncode == 0, proc.stderr
-    truths = json.loads((corpus / "truth.json").read_text())["scans"]
-    est, status = score.read_cohort(run)
-    return truths, {"est": est, "status": status, "score": score}
+    validation_module("generate").generate(corpus, preset="ci")
+    return batch_on_corpus(corpus)
 
 
 def _relative_errors(truths: list[dict], run: dict, measure: str) -> np.ndarray:

@@ -461,11 +461,15 @@ def simulate_macromolecule(
     spectrometer_mhz: float,
     centre_ppm: float = 4.65,
 ) -> LineList:
-    """Gaussian lines of a macromolecule/lipid component (uncoupled; scaled like a singlet echo)."""
+    """Gaussian lines of a macromolecule/lipid component (uncoupled; scaled like a singlet echo).
+
+    The widths are :meth:`~specproc.spins.systems.Macromolecule.fwhm_hz` at the spectrometer
+    frequency.
+    """
     amplitude = sequence_singlet_amplitude(sequence)
     peaks: tuple[GaussianPeak, ...] = component.peaks
     return LineList(
         np.array([(p.shift_ppm - centre_ppm) * spectrometer_mhz for p in peaks]),
         np.array([p.protons * amplitude for p in peaks], dtype=complex),
-        np.array([p.fwhm_ppm * spectrometer_mhz for p in peaks]),
+        np.array(component.fwhm_hz(spectrometer_mhz)),
     )

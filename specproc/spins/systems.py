@@ -55,6 +55,7 @@ from pathlib import Path
 from typing import Any
 
 from specproc._paths import basis_dir
+from specproc.constants import larmor_mhz
 from specproc.errors import InvalidInputError
 from specproc.provenance import (
     Provenance,
@@ -202,11 +203,27 @@ class Macromolecule:
     kind: str = "macromolecule"
     provenance: Provenance | None = None
     shape_provenance: Provenance | None = None
+    width_field_t: float | None = None
+    width_field_provenance: Provenance | None = None
 
     @property
     def protons(self) -> float:
         """Sum of the relative proton weights of the peaks."""
         return float(sum(p.protons for p in self.peaks))
+
+    def fwhm_hz(self, spectrometer_mhz: float) -> tuple[float, ...]:
+        """Full width at half maximum of each peak at a spectrometer frequency, Hz.
+
+        ``fwhm_ppm`` is the width at ``width_field_t``; at higher fields the width in Hz of
+        that field is kept (the part of a macromolecule line width set by its short T2 and its
+        unresolved J multiplets does not grow with the field, so a width fixed in ppm would
+        outgrow the line, and the fit can only broaden a basis line), at lower fields the
+        width in ppm. Without ``width_field_t`` the width is ``fwhm_ppm`` at every field.
+        """
+        mhz = float(spectrometer_mhz)
+        if self.width_field_t is not None:
+            mhz = min(mhz, larmor_mhz(self.width_field_t))
+        return tuple(p.fwhm_ppm * mhz for p in self.peaks)
 
 
 # ---------------------------------------------------------------------------- reading
@@ -424,6 +441,14 @@ def load_macromolecules(folder: str | os.PathLike[str] | None = None) -> list[Ma
     path = folder / MACROMOLECULE_FILE
     table = _read_toml(path)
     refs = read_references(table, path)
+    width_field_t = None
+    width_prov = None
+    if "width_field_t" in table:
+        width_field_t = _number(table, "width_field_t", path, "top level")
+        if not width_field_t > 0:
+            raise InvalidInputError("top level: 'width_field_t' must be > 0", path)
+        width_prov = parse_provenance(table.get("width_field_provenance"), refs,
+                                      "width_field_t", path)
     out = []
     names: set[str] = set()
     for i, raw in enumerate(_tables(table, "component", path), start=1):
@@ -452,7 +477,8 @@ def load_macromolecules(folder: str | os.PathLike[str] | None = None) -> list[Ma
         out.append(
             Macromolecule(
                 name=name, peaks=tuple(peaks), source=str(raw.get("source", prov.text())),
-                provenance=prov, shape_provenance=shape,
+                provenance=prov, shape_provenance=shape, width_field_t=width_field_t,
+                width_field_provenance=width_prov,
             )
         )
     return out
@@ -490,6 +516,9 @@ def provenance_items(
             shape = mm.shape_provenance or unknown
             out.append(ProvenanceItem("spin", f"{mm.name} peak {k} fwhm_ppm", p.fwhm_ppm, shape))
             out.append(ProvenanceItem("spin", f"{mm.name} peak {k} protons", p.protons, shape))
+        if mm.width_field_t is not None:
+            out.append(ProvenanceItem("spin", f"{mm.name} width_field_t", mm.width_field_t,
+                                      mm.width_field_provenance or unknown))
     return out
 
 

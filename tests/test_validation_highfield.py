@@ -1,0 +1,50 @@
+"""Scans of the independent validation corpus at 7 T, run through ``specproc batch``.
+
+Outside check: the scans come from ``benchmarks/validation/generate.py`` (its ``7T-TE30``
+category: PRESS TE 30 with uneven TE1 in the header, NAA 8-15 Hz, SNR 20-150, 4 kHz), a
+generator that shares no line-shape, macromolecule, baseline or water code with the fit; its
+macromolecules are Lorentzian multiplets with a short T2 (25 ms at 7 T, its own choice). The
+truth is the relaxation-weighted ratio to tCr that the generator put in.
+
+What is checked: with basis macromolecule lines fixed in ppm (0.10-0.16 ppm, 30-48 Hz at
+7 T) the basis lines were broader than the signal, the fit could not narrow them, and
+glutamate under them was lost (Glu/tCr median |error| 55 % and Glx 26 % on these eight scans,
+tCho 14 %); with the 3 T widths kept in Hz above 3 T (methods §3) they are about 9 %, 3 % and
+2 %. tNAA/tCr is not checked here: macromolecules under NAA whose shape is not the fit's still
+bias it at every field (issue 10).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from _validation import batch_on_corpus, validation_module
+
+SCANS = tuple(f"7t-te30-{i:03d}" for i in range(1, 9))
+
+
+@pytest.fixture(scope="module")
+def run_7t(tmp_path_factory: pytest.TempPathFactory) -> tuple[list[dict], dict]:
+    corpus = tmp_path_factory.mktemp("validation-7t")
+    validation_module("generate").generate(corpus, scan_ids=SCANS)
+    truths, run = batch_on_corpus(corpus, timeout_s=900)
+    assert sorted(t["scan_id"] for t in truths) == list(SCANS)
+    assert all(t["spec"]["field_t"] == 7.0 for t in truths)
+    assert all(s != "failed" for s in run["status"].values())
+    return truths, run
+
+
+def _median_abs_error(run_7t, measure: str) -> float:
+    truths, run = run_7t
+    errors = run["score"].errors(truths, run["est"], measure, measure, "ratio")
+    assert errors["missing"] == 0, f"{measure}: {errors['missing']} scans without an estimate"
+    return float(np.median(np.abs(errors["rel_pct"])))
+
+
+@pytest.mark.slow
+def test_7t_glutamate_and_choline_survive_the_macromolecules(run_7t) -> None:
+    # limits: about twice the errors after the change, a third of those before it
+    assert _median_abs_error(run_7t, "Glu") < 20.0
+    assert _median_abs_error(run_7t, "Glx") < 12.0
+    # issue 10 target for 1.5 T, 7 T and TE 144: tCho/tCr median |error| <= 6 %
+    assert _median_abs_error(run_7t, "tCho") < 6.0
