@@ -9,9 +9,10 @@ hence a few bases; simulated once and cached before anything is timed).
 
 Printed:
 
-1. CPU seconds per scan by stage (load, preprocess, basis, fit, quantify, QC, tables, figures,
-   report, other) for all outputs and for tables only, measured in this process by timing the
-   functions the batch calls (``time.process_time``, exclusive of nested stages), after one
+1. CPU seconds per scan by stage (load, preprocess, basis, fit, model uncertainty (the refits
+   of :mod:`specproc.fit.sensitivity`), quantify, QC, tables, figures, report, other) for all
+   outputs and for tables only, measured in this process by timing the functions the batch
+   calls (``time.process_time``, exclusive of nested stages), after one
    warm-up scan so that one-time imports are not counted (they are shown on their own);
 2. one dense least-squares solve of the fit's design matrix (``numpy.linalg.lstsq``, members
    plus baseline and penalty rows) as the physical reference of the fit stage;
@@ -64,6 +65,7 @@ STAGES: dict[str, tuple[tuple[str, str], ...]] = {
     "basis": (("specproc.batch.task", "_load_basis"), ("specproc.batch.runner", "_prepare_basis"),
               ("specproc.protocol", "Protocol.simulate")),
     "fit": (("specproc.fit", "fit_spectrum"),),
+    "model uncertainty": (("specproc.analysis", "_model_sensitivity"),),
     "quantify": (("specproc.quantify", "quantify"), ("specproc.quantify", "WaterSignal.measure")),
     "QC": (("specproc.qc", "qc_from_scan"),),
     "tables": (("specproc._tsv", "tsv_text"), ("specproc.report.tables", "config_to_toml"),

@@ -28,7 +28,10 @@ relaxation overrides), ``preprocessing`` (every step record, transient report, n
 each timing, or null for a basis given by the caller), ``basis`` (origin, members, protons,
 timings, hashes), ``fit`` (:func:`specproc.fit.result_to_dict` without spectra and without the
 full parameter covariance), ``water_amplitude`` (or null), ``quantification``
-(:meth:`specproc.quantify.Quantification.to_dict`: formula and constants), ``provenance``
+(:meth:`specproc.quantify.Quantification.to_dict`: formula and constants, and the model SDs),
+``model_uncertainty`` (:meth:`specproc.fit.sensitivity.ModelSensitivity.to_dict`: the
+alternative model choices, their amplitudes and the member model SDs; null when off),
+``provenance``
 (:func:`specproc.provenance.physics_provenance`: how many of the spin, relaxation and water
 values used are checked, derived, from memory or overridden, and which), ``qc``
 (:meth:`specproc.qc.QCReport.to_dict`), ``spectrum`` (``ppm``, and the real parts of the
@@ -242,6 +245,9 @@ class ScanResult:
     edited : EditedResult or None
         The edited part (GABA+, DIFF fit, edited QC) of a J-difference edited scan
         (:mod:`specproc.edited`); this result is then the analysis of its OFF spectrum.
+    sensitivity : ModelSensitivity or None
+        The refits under alternative model choices that give the model uncertainty
+        (:mod:`specproc.fit.sensitivity`); None when ``[uncertainty] model`` is off.
     """
 
     title: str
@@ -267,6 +273,7 @@ class ScanResult:
     tissue_info: dict[str, Any] | None = None
     tissue_planes: Any = None
     edited: Any = None
+    sensitivity: Any = None
 
     # ------------------------------------------------------------------ summaries
     @property
@@ -355,6 +362,8 @@ class ScanResult:
             "fit": fit,
             "water_amplitude": self.water_info,
             "quantification": self.quantification.to_dict(),
+            "model_uncertainty": None if self.sensitivity is None
+            else self.sensitivity.to_dict(),
             "provenance": self.provenance(),
             "qc": self.qc.to_dict(),
             "notes": list(self.notes),
@@ -627,6 +636,7 @@ def analyse_scan(
         used_basis = used_protocol.simulate()
     notes.extend(input_notes(scan, water, used_basis, pre.water))
     fit = fit_spectrum(pre.scan, used_basis, config=cfg)
+    sensitivity = _model_sensitivity(pre.scan, used_basis, fit, cfg)
 
     # ---- quantification
     water_info: dict[str, Any] | None = None
@@ -642,7 +652,7 @@ def analyse_scan(
     elif tissue_fractions is not None:
         notes.append("tissue fractions were given but no water reference: ratios only")
     quant = quantify(
-        Amplitudes.from_fit(fit, used_basis), water=water_signal,
+        Amplitudes.from_fit(fit, used_basis, sensitivity), water=water_signal,
         tissue=None if water_signal is None or tissue_fractions is None
         else Tissue(tissue_fractions, **water_constants),
         acquisition=Acquisition.from_scan(pre.scan), relaxation=relaxation_overrides,
@@ -684,8 +694,19 @@ def analyse_scan(
         relaxation_overrides=relaxation_overrides, inputs=inputs,
         versions=software_versions(), notes=tuple(notes),
         elapsed_s=time.perf_counter() - start, tissue_info=tissue_info,
-        tissue_planes=tissue_planes,
+        tissue_planes=tissue_planes, sensitivity=sensitivity,
     )
+
+
+def _model_sensitivity(scan: Any, basis: Any, fit: Any, cfg: Mapping[str, Any]) -> Any:
+    """The refits under alternative model choices (:mod:`specproc.fit.sensitivity`), or None
+    when ``[uncertainty] model`` is off or the main fit collapsed."""
+    from specproc.fit.sensitivity import model_sensitivity, sensitivity_settings
+
+    options = sensitivity_settings(cfg)
+    if not options.model or any(str(f).startswith("collapsed:") for f in fit.flags):
+        return None
+    return model_sensitivity(scan, basis, fit, config=cfg, options=options)
 
 
 # ============================================================================ outputs

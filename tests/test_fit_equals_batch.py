@@ -74,11 +74,12 @@ def folders(inputs: Path, tmp_path_factory: pytest.TempPathFactory) -> tuple[Pat
 
 
 def _numbers(doc: dict) -> dict:
-    """fit.json without what may differ: the settings' source, the wall time of the fit and
-    the time stamps of the processing records."""
+    """fit.json without what may differ: the settings' source, the wall times of the fit and
+    of the model-uncertainty refits, and the time stamps of the processing records."""
     doc = json.loads(json.dumps(doc))
     doc["settings"].pop("config_source")
     doc["fit"].pop("elapsed_s")
+    doc["model_uncertainty"].pop("elapsed_s")
     for key in ("steps", "water_steps"):
         for record in doc["preprocessing"][key]:
             record.pop("Time")

@@ -46,7 +46,8 @@ _ID_COLUMNS = ("scan_id", "subject", "session")
 #: Columns of ``cohort.tsv``.
 COHORT_COLUMNS: tuple[str, ...] = (
     *_ID_COLUMNS, "metabolite", "kind", "amplitude", "crlb_sd", "crlb_percent",
-    "ratio_tcr", "ratio_tcr_sd", "ratio_water", "conc_molar_mm", "conc_molar_sd_mm",
+    "ratio_tcr", "ratio_tcr_sd", "ratio_tcr_model_sd", "ratio_tcr_total_sd", "ratio_water",
+    "conc_molar_mm", "conc_molar_sd_mm", "conc_molar_model_sd_mm", "conc_molar_total_sd_mm",
     "conc_molal_mmol_kg", "conc_molal_sd_mmol_kg", "fit_flag", "scan_status", "snr",
     "naa_fwhm_hz",
 )

@@ -204,6 +204,7 @@ def _metabolite_rows(table: list[Mapping[str, Any]], quant: Mapping[str, Any]
         values = quant.get(key)
         return _num(values.get(name)) if isinstance(values, Mapping) else None
 
+    from specproc.quantify.sums import total_sd
     from specproc.report.tables import CONCENTRATION_KINDS
 
     rows = []
@@ -211,6 +212,8 @@ def _metabolite_rows(table: list[Mapping[str, Any]], quant: Mapping[str, Any]
         name = str(r.get("metabolite"))
         ratio = pick(name, "ratios")
         molar = r.get("kind") in CONCENTRATION_KINDS  # one rule: no mM for macromolecules
+        ratio_model = pick(name, "ratio_model_sd")
+        molar_model = pick(name, "conc_molar_model_sd_mm") if molar else None
         rows.append({
             "metabolite": name,
             "kind": r.get("kind"),
@@ -219,9 +222,14 @@ def _metabolite_rows(table: list[Mapping[str, Any]], quant: Mapping[str, Any]
             "crlb_percent": _num(r.get("crlb_percent")),
             "ratio_tcr": ratio if ratio is not None else _num(r.get("ratio_tcr")),
             "ratio_tcr_sd": pick(name, "ratio_sd"),
+            "ratio_tcr_model_sd": ratio_model,
+            "ratio_tcr_total_sd": _num(total_sd(pick(name, "ratio_sd"), ratio_model)),
             "ratio_water": pick(name, "ratios_to_water"),
             "conc_molar_mm": pick(name, "conc_molar_mm") if molar else None,
             "conc_molar_sd_mm": pick(name, "conc_molar_sd_mm") if molar else None,
+            "conc_molar_model_sd_mm": molar_model,
+            "conc_molar_total_sd_mm": _num(total_sd(pick(name, "conc_molar_sd_mm"),
+                                                    molar_model)) if molar else None,
             "conc_molal_mmol_kg": pick(name, "conc_molal_mmol_kg") if molar else None,
             "conc_molal_sd_mmol_kg": pick(name, "conc_molal_sd_mmol_kg") if molar else None,
             "fit_flag": r.get("flag") or "",

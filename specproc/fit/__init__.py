@@ -4,7 +4,8 @@ Public entry: :func:`fit_spectrum` (scan + basis -> :class:`FitResult`). The mod
 :mod:`specproc.fit.model`, variable projection in :mod:`specproc.fit.varpro`, the spline
 baseline in :mod:`specproc.fit.baseline`, the bounds in :mod:`specproc.fit.crlb` and the result
 in :mod:`specproc.fit.result`; its text, table and figure renderings are in
-:mod:`specproc.report`.
+:mod:`specproc.report`. The model uncertainty (refits of a scan under alternative model
+choices, warm-started from its fit) is in :mod:`specproc.fit.sensitivity`.
 """
 
 from specproc.fit.fitter import fit_spectrum

@@ -84,7 +84,9 @@ def _check_inputs(scan: Scan, basis: BasisSet) -> None:
         )
 
 
-def fit_spectrum(scan: Scan, basis: BasisSet, *, config: Any = None) -> FitResult:
+def fit_spectrum(
+    scan: Scan, basis: BasisSet, *, config: Any = None, start: Mapping[str, float] | None = None
+) -> FitResult:
     """Fit a spectrum as a linear combination of basis signals plus a spline baseline.
 
     Parameters
@@ -96,6 +98,14 @@ def fit_spectrum(scan: Scan, basis: BasisSet, *, config: Any = None) -> FitResul
         receiver centre.
     config : None, FitSettings or mapping, optional
         Fit settings, or a configuration whose ``[fit]`` table holds them (defaults otherwise).
+    start : mapping of str to float, optional
+        Warm start: nonlinear parameters by name, as in :attr:`FitResult.nonlinear` of an
+        earlier fit of the same scan (parameters it does not name keep their usual starting
+        values). The coarse search, the linewidth grid and the first refinement stage are then
+        skipped; the baseline penalty choice, the amplitude tie and the second stage run as
+        usual from there (with every family in ``fixed``, nothing is refined and the
+        amplitudes and baseline are solved at the given parameters). Used by
+        :mod:`specproc.fit.sensitivity` to refit a scan under other model choices cheaply.
 
     Returns
     -------
@@ -136,10 +146,11 @@ def fit_spectrum(scan: Scan, basis: BasisSet, *, config: Any = None) -> FitResul
     [2.0, 1.0]
     """
     with blas_threads():
-        return _fit(scan, basis, config)
+        return _fit(scan, basis, config, start)
 
 
-def _fit(scan: Scan, basis: BasisSet, config: Any) -> FitResult:
+def _fit(scan: Scan, basis: BasisSet, config: Any,
+         warm_start: Mapping[str, float] | None = None) -> FitResult:
     start = time.perf_counter()
     settings = settings_from_config(config)
     _check_inputs(scan, basis)
@@ -167,7 +178,9 @@ def _fit(scan: Scan, basis: BasisSet, config: Any) -> FitResult:
                             noise_sd)
     tied = np.array([settings.mm_amplitude_sd > 0 and matches(n, k, settings.mm_amplitude_members)
                      for n, k in zip(names, kinds, strict=True)], dtype=bool)
-    problem, weight, theta, messages, ok, nfev = _optimise(problem, model, settings, tied)
+    theta0 = None if warm_start is None else _warm_start(model, settings, names, warm_start)
+    problem, weight, theta, messages, ok, nfev = _optimise(problem, model, settings, tied,
+                                                           theta0)
     result = _assemble(problem, model, theta, settings, names, kinds, noise_sd, noise_regions,
                        messages, ok, nfev, start)
     if problem.nb:
@@ -286,11 +299,38 @@ def _amplitude_tie(
     return rows * (problem.noise_sd / (settings.mm_amplitude_sd * level))
 
 
+def _public_names(layout_names: tuple[str, ...], names: tuple[str, ...]) -> dict[str, str]:
+    """The name of each nonlinear parameter in :attr:`FitResult.nonlinear` (per-member
+    parameters carry the member's name instead of its index)."""
+    public = {}
+    for i, member in enumerate(names):
+        public[f"dshift_{i}_hz"] = f"dshift_{member}_hz"
+        public[f"ddamping_{i}_per_s"] = f"ddamping_{member}_per_s"
+        public[f"damping_member{i}_per_s"] = f"damping_{member}_per_s"
+    return {n: public.get(n, n) for n in layout_names}
+
+
+def _warm_start(model: SpectralModel, settings: FitSettings, names: tuple[str, ...],
+                start: Mapping[str, float]) -> np.ndarray:
+    """θ from the named parameters of ``start`` (the rest at their usual start), inside the
+    bounds."""
+    lay = model.layout
+    theta = start_values(model, settings)
+    for j, public in enumerate(_public_names(lay.names, names).values()):
+        value = start.get(public)
+        if value is not None and np.isfinite(value):
+            theta[j] = float(value)
+    return np.clip(theta, lay.lower, lay.upper)
+
+
 def _optimise(
-    problem: VarproProblem, model: SpectralModel, settings: FitSettings, tied: np.ndarray
+    problem: VarproProblem, model: SpectralModel, settings: FitSettings, tied: np.ndarray,
+    warm: np.ndarray | None = None,
 ) -> tuple[VarproProblem, float, np.ndarray, str, bool, int]:
     lay = model.layout
     fixed = set(settings.fixed)
+    if warm is not None:
+        return _optimise_from(problem, model, settings, tied, warm)
     theta = start_values(model, settings)
     search_hz = settings.shift_search_ppm * model.mhz
     shift_free = "shift" not in fixed
@@ -314,6 +354,19 @@ def _optimise(
     stage1[lay.i_damp_separate] = False
     theta, res1 = problem.refine(theta, stage1, max_nfev=settings.max_iterations, tight=False)
     nfev += res1.nfev if res1 is not None else 0
+    problem, weight, theta, res2, nfev2 = _final_stage(problem, model, settings, tied, theta)
+    nfev += nfev2
+    last = res2 if res2 is not None else res1
+    if last is None:
+        return problem, weight, theta, "all nonlinear parameters held", True, nfev
+    return problem, weight, theta, str(last.message), bool(last.status > 0), nfev
+
+
+def _final_stage(
+    problem: VarproProblem, model: SpectralModel, settings: FitSettings, tied: np.ndarray,
+    theta: np.ndarray,
+) -> tuple[VarproProblem, float, np.ndarray, Any, int]:
+    """Baseline penalty from the data, amplitude tie, then stage 2 (everything not held)."""
     weight = settings.baseline_penalty
     if settings.baseline and settings.baseline_auto and problem.nb:
         problem, weight = _choose_penalty(problem, theta, settings)
@@ -321,13 +374,20 @@ def _optimise(
     if tie.shape[0]:
         problem = VarproProblem(model, problem.y, problem.bmat, problem.pmat, problem.noise_sd,
                                 amplitude_prior=tie)
-    stage2 = ~lay.mask(list(fixed))
+    stage2 = ~model.layout.mask(list(settings.fixed))
     theta, res2 = problem.refine(theta, stage2, max_nfev=settings.max_iterations, tight=True)
-    nfev += res2.nfev if res2 is not None else 0
-    last = res2 if res2 is not None else res1
-    if last is None:
+    return problem, weight, theta, res2, res2.nfev if res2 is not None else 0
+
+
+def _optimise_from(
+    problem: VarproProblem, model: SpectralModel, settings: FitSettings, tied: np.ndarray,
+    theta: np.ndarray,
+) -> tuple[VarproProblem, float, np.ndarray, str, bool, int]:
+    """:func:`_optimise` from a warm start: only the final stage."""
+    problem, weight, theta, res, nfev = _final_stage(problem, model, settings, tied, theta)
+    if res is None:
         return problem, weight, theta, "all nonlinear parameters held", True, nfev
-    return problem, weight, theta, str(last.message), bool(last.status > 0), nfev
+    return problem, weight, theta, str(res.message), bool(res.status > 0), nfev
 
 
 def _assemble(
@@ -420,10 +480,7 @@ def _assemble(
     )
     par_values = np.concatenate([c, sol.baseline_coef.real, sol.baseline_coef.imag,
                                  theta[i_free]])
-    fixed_names = {f"dshift_{i}_hz": f"dshift_{names[i]}_hz" for i in range(m)}
-    fixed_names.update({f"ddamping_{i}_per_s": f"ddamping_{names[i]}_per_s" for i in range(m)})
-    fixed_names.update({f"damping_member{i}_per_s": f"damping_{names[i]}_per_s"
-                        for i in range(m)})
+    fixed_names = _public_names(lay.names, names)
 
     def rename(name: str) -> str:
         return fixed_names.get(name, name)

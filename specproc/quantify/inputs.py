@@ -43,6 +43,12 @@ class Amplitudes:
     per_molecule : bool
         Whether the amplitudes are per molecule (a basis normalised to its protons, as the fit
         of :mod:`specproc.fit` gives) rather than signal areas.
+    alternatives : (V, n) ndarray or None
+        The amplitudes under alternative model choices, one row per refit
+        (:class:`specproc.fit.sensitivity.ModelSensitivity`); their spread gives the model
+        uncertainty of every quantity (:func:`specproc.quantify.sums.systematic_sd`).
+    alternative_factors : tuple of str
+        The model choice (factor) each row varies.
     """
 
     names: tuple[str, ...]
@@ -50,6 +56,8 @@ class Amplitudes:
     covariance: np.ndarray | None = None
     protons: Mapping[str, float] | None = None
     per_molecule: bool = False
+    alternatives: np.ndarray | None = None
+    alternative_factors: tuple[str, ...] = ()
 
     def __post_init__(self) -> None:
         names = tuple(str(n) for n in self.names)
@@ -63,6 +71,14 @@ class Amplitudes:
         object.__setattr__(self, "names", names)
         object.__setattr__(self, "values", values)
         object.__setattr__(self, "covariance", _as_cov(self.covariance, None, values.size))
+        if self.alternatives is not None:
+            alt = np.asarray(self.alternatives, dtype=float).reshape(-1, values.size)
+            factors = tuple(str(f) for f in self.alternative_factors)
+            if len(factors) != alt.shape[0]:
+                raise InvalidInputError(
+                    f"{alt.shape[0]} alternative amplitude rows but {len(factors)} factors")
+            object.__setattr__(self, "alternatives", alt)
+            object.__setattr__(self, "alternative_factors", factors)
 
     @classmethod
     def from_mapping(cls, amplitudes: Mapping[str, float], *,
@@ -79,12 +95,18 @@ class Amplitudes:
         return cls(names, values, cov, protons, per_molecule)
 
     @classmethod
-    def from_fit(cls, fit: Any, basis: Any) -> Amplitudes:
+    def from_fit(cls, fit: Any, basis: Any, sensitivity: Any = None) -> Amplitudes:
         """The amplitudes of a :class:`~specproc.fit.FitResult` (per molecule) with their
-        Cramér-Rao covariance, and the proton counts of its basis."""
+        Cramér-Rao covariance, and the proton counts of its basis; with a
+        :class:`~specproc.fit.sensitivity.ModelSensitivity` of the fit, its refits as the
+        alternatives."""
         protons = {str(n): float(p) for n, p in zip(basis.names, basis.protons, strict=True)}
+        alternatives, factors = None, ()
+        if sensitivity is not None:
+            alternatives, factors = sensitivity.variant_amplitudes, sensitivity.factors
         return cls(tuple(fit.names), np.asarray(fit.amplitudes, dtype=float),
-                   np.asarray(fit.covariance, dtype=float), protons, True)
+                   np.asarray(fit.covariance, dtype=float), protons, True, alternatives,
+                   factors)
 
 
 @dataclass(frozen=True)

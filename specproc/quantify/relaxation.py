@@ -9,6 +9,7 @@ scan's field: an interpolated or field-scaled value is ``derived`` from its reco
 
 from __future__ import annotations
 
+import copy
 import math
 import os
 import tomllib
@@ -303,7 +304,20 @@ def _check_entries(
     return out
 
 
+#: The parsed bundled table (package data: it does not change while the program runs; every
+#: fit reads it for the width prior, so it is parsed once per process).
+_BUNDLED: dict[str, Any] = {}
+
+
 def _read_toml(path: Path) -> dict[str, Any]:
+    if path == RELAXATION_FILE:
+        if not _BUNDLED:
+            _BUNDLED.update(_parse_toml(path))
+        return copy.deepcopy(_BUNDLED)
+    return _parse_toml(path)
+
+
+def _parse_toml(path: Path) -> dict[str, Any]:
     try:
         with open(path, "rb") as fh:
             return tomllib.load(fh)

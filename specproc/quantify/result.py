@@ -19,6 +19,7 @@ from specproc.quantify.sums import (
     _ratio_formula,
     combine_linear,
     ratio_linear,
+    systematic_sd,
 )
 from specproc.quantify.water import (
     _MOLAL_FORMULA,
@@ -66,6 +67,15 @@ class Quantification:
         Every constant used (JSON-serialisable).
     notes : tuple of str
         Warnings and assumptions.
+    amplitude_model_sd, ratio_model_sd : dict or None
+        Model uncertainty (systematic SD) of the amplitudes and of the ratios: the spread over
+        the refits under alternative model choices (:mod:`specproc.fit.sensitivity`), each
+        ratio formed in every refit; ``None`` when it was not estimated. The SDs above
+        (``amplitude_sd``, ``ratio_sd``, ...) stay the Cramér-Rao (statistical) ones; the
+        total is ``sqrt(SD² + model SD²)`` (:func:`specproc.quantify.sums.total_sd`).
+    conc_molar_model_sd_mm, conc_molal_model_sd_mmol_kg : dict or None
+        The same for the water-referenced concentrations (the water signal and the tissue
+        and relaxation factors held).
     """
 
     names: tuple[str, ...]
@@ -85,6 +95,10 @@ class Quantification:
     formula: dict[str, str]
     constants: dict[str, Any]
     notes: tuple[str, ...] = ()
+    amplitude_model_sd: dict[str, float] | None = None
+    ratio_model_sd: dict[str, float] | None = None
+    conc_molar_model_sd_mm: dict[str, float] | None = None
+    conc_molal_model_sd_mmol_kg: dict[str, float] | None = None
 
     @property
     def water_referenced(self) -> bool:
@@ -105,12 +119,16 @@ class Quantification:
                 f"ratio_to_{self.reference}_sd": self.ratio_sd.get(n, nan),
             }
             columns = {
+                "amplitude_model_sd": self.amplitude_model_sd,
+                f"ratio_to_{self.reference}_model_sd": self.ratio_model_sd,
                 "ratio_to_water": self.ratios_to_water,
                 "ratio_to_water_sd": self.ratios_to_water_sd,
                 "conc_molar_mm": self.conc_molar_mm,
                 "conc_molar_sd_mm": self.conc_molar_sd_mm,
                 "conc_molal_mmol_kg": self.conc_molal_mmol_kg,
                 "conc_molal_sd_mmol_kg": self.conc_molal_sd_mmol_kg,
+                "conc_molar_model_sd_mm": self.conc_molar_model_sd_mm,
+                "conc_molal_model_sd_mmol_kg": self.conc_molal_model_sd_mmol_kg,
             }
             for key, table in columns.items():
                 if table is not None:
@@ -137,6 +155,10 @@ class Quantification:
                 "conc_molar_sd_mm": self.conc_molar_sd_mm,
                 "conc_molal_mmol_kg": self.conc_molal_mmol_kg,
                 "conc_molal_sd_mmol_kg": self.conc_molal_sd_mmol_kg,
+                "amplitude_model_sd": self.amplitude_model_sd,
+                "ratio_model_sd": self.ratio_model_sd,
+                "conc_molar_model_sd_mm": self.conc_molar_model_sd_mm,
+                "conc_molal_model_sd_mmol_kg": self.conc_molal_model_sd_mmol_kg,
                 "units": {
                     "conc_molar_mm": "mmol per litre of GM+WM tissue (CSF-corrected)",
                     "conc_molal_mmol_kg": "mmol per kg of GM+WM tissue water",
@@ -254,15 +276,35 @@ def quantify(
             u[i] = weights[i]
         return u
 
+    alts = amps_in.alternatives
+    factors = amps_in.alternative_factors
+
+    def model_sd(u: np.ndarray, w: np.ndarray | None = None) -> float:
+        """Systematic SD of ``u·v`` (or of ``u·v / w·v``) over the alternative fits."""
+        assert alts is not None
+        if w is None:
+            return systematic_sd(float(u @ values), alts @ u, factors)
+        den0, dens = float(w @ values), alts @ w
+        if not den0 > 0 or not np.all(dens > 0):
+            return float("nan")
+        return systematic_sd(float(u @ values) / den0, (alts @ u) / dens, factors)
+
+    amp_model = None
+    if alts is not None:
+        amp_model = {name: model_sd(selector(name, np.ones(n))) for name in out_names}
+
     # ---- ratios to the reference (molecule ratios)
     ratios: dict[str, float] = {}
     ratio_sd: dict[str, float] = {}
+    ratio_model: dict[str, float] | None = None if alts is None else {}
     if reference in out_names:
         den = selector(reference, per_molecule)
         for name in out_names:
             ratios[name], ratio_sd[name] = ratio_linear(
                 selector(name, per_molecule), den, values, cov
             )
+            if ratio_model is not None:
+                ratio_model[name] = model_sd(selector(name, per_molecule), den)
         if not ratios[reference] == ratios[reference]:  # NaN: zero denominator
             notes.append(f"{reference} amplitude is zero: ratios undefined")
     else:
@@ -285,7 +327,7 @@ def quantify(
             ratios_to_water=None, ratios_to_water_sd=None, conc_molar_mm=None,
             conc_molar_sd_mm=None, conc_molal_mmol_kg=None, conc_molal_sd_mmol_kg=None,
             statement=statement, formula=formula, constants=to_jsonable(constants),
-            notes=tuple(notes),
+            notes=tuple(notes), amplitude_model_sd=amp_model, ratio_model_sd=ratio_model,
         )
 
     # ---- water referencing
@@ -345,6 +387,12 @@ def quantify(
             sds[name] = math.sqrt(var + vals[name] ** 2 * rel_w_var)
         return vals, sds
 
+    def scaled_model(k: Mapping[str, float]) -> dict[str, float] | None:
+        if alts is None:
+            return None
+        weights = np.array([k[m] for m in member_names])
+        return {name: model_sd(selector(name, weights)) for name in out_names}
+
     molar, molar_sd = scaled(k_molar)
     molal, molal_sd = scaled(k_molal)
     to_water, to_water_sd = scaled(per_molecule * float(water_protons) / s_w)
@@ -378,6 +426,9 @@ def quantify(
         ratios_to_water_sd=to_water_sd, conc_molar_mm=molar, conc_molar_sd_mm=molar_sd,
         conc_molal_mmol_kg=molal, conc_molal_sd_mmol_kg=molal_sd, statement=statement,
         formula=formula, constants=to_jsonable(constants), notes=tuple(notes),
+        amplitude_model_sd=amp_model, ratio_model_sd=ratio_model,
+        conc_molar_model_sd_mm=scaled_model(k_molar),
+        conc_molal_model_sd_mmol_kg=scaled_model(k_molal),
     )
 
 

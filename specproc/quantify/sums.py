@@ -14,7 +14,7 @@ import numpy as np
 from specproc.errors import InvalidInputError
 from specproc.sums import SUMS, sum_members
 
-__all__ = ["combine_linear", "ratio_linear"]
+__all__ = ["combine_linear", "ratio_linear", "systematic_sd", "total_sd"]
 
 
 def _as_cov(covariance: Any, sd: Any, n: int) -> np.ndarray | None:
@@ -111,6 +111,37 @@ def ratio_linear(
     g = u / y - x * w / y**2
     return r, float(np.sqrt(max(g @ cov @ g, 0.0)))
 
+
+
+def systematic_sd(main: float, alternatives: Sequence[float] | np.ndarray,
+                  factors: Sequence[str]) -> float:
+    """Systematic SD of a quantity from its values under alternative model choices.
+
+    ``δ_f² = mean_{k in f} (x_k - x_0)²`` for each factor ``f`` (the RMS difference of its
+    alternatives from the main value ``x_0``), and ``SD² = Σ_f δ_f²``: each alternative is
+    taken as a one-SD change of its choice and the factors as independent, added in
+    quadrature (Barlow, arXiv:hep-ex/0207026, 2002; JCGM 100:2008 (GUM) 5.1). NaN when
+    there are no alternatives or a value is not finite.
+
+    Examples
+    --------
+    >>> round(systematic_sd(1.0, [1.1, 0.9, 1.3], ["a", "a", "b"]), 4)
+    0.3162
+    """
+    x = np.asarray(alternatives, dtype=float).reshape(-1)
+    if x.size == 0 or x.size != len(factors) or not (np.isfinite(main) and np.all(np.isfinite(x))):
+        return float("nan")
+    d2 = (x - float(main)) ** 2
+    labels = np.asarray(list(factors), dtype=object)
+    return float(np.sqrt(sum(float(d2[labels == f].mean()) for f in dict.fromkeys(factors))))
+
+
+def total_sd(statistical: float | None, systematic: float | None) -> float:
+    """``sqrt(statistical² + systematic²)``; NaN when either is missing (None or NaN): a
+    total is not reported when the model uncertainty was not estimated."""
+    s = float("nan") if statistical is None else float(statistical)
+    m = float("nan") if systematic is None else float(systematic)
+    return math.hypot(s, m) if math.isfinite(s) and math.isfinite(m) else float("nan")
 
 
 def _ratio_formula(reference: str) -> str:

@@ -87,6 +87,15 @@ def methods_doc_uri() -> str | None:
     return path.as_uri() if path.is_file() else None
 
 
+def _sd_text(sd: Any) -> str:
+    """An SD with two significant figures, ``—`` when missing."""
+    try:
+        value = float(sd)
+    except (TypeError, ValueError):
+        return "—"
+    return sig(value, 2) if math.isfinite(value) else "—"
+
+
 def _pm(value: float, sd: float) -> str:
     """``"8.05 ± 0.41"``: the value with three significant figures, its SD with two."""
     if not math.isfinite(value):
@@ -149,6 +158,8 @@ def result_display_rows(rows: Sequence[Mapping[str, Any]], crlb_limit: float | N
             "molal": _pm(float(r["conc_molal_mmol_kg"]), float(r["conc_molal_sd_mmol_kg"])),
             "ratio": "1 (reference)" if is_reference else _pm(float(r["ratio_tcr"]),
                                                                float(r["ratio_tcr_sd"])),
+            "ratio_total": "" if is_reference else _sd_text(r.get("ratio_tcr_total_sd")),
+            "conc_total": _sd_text(r.get("conc_molar_total_sd_mm")),
             "amplitude": sig(r["amplitude"]),
             "crlb": crlb_text(pct),
             "reliability": reliability,
@@ -270,10 +281,17 @@ def render_report(
     limit = qc.thresholds.crlb_percent_max
     display = result_display_rows(rows, limit)
     columns: list[tuple[str, str]] = [("metabolite", "metabolite")]
+    model = quant.ratio_model_sd is not None
     if quant.water_referenced:
-        columns += [("conc", "mM in tissue ± SD"), ("molal", "mmol/kg tissue water ± SD")]
-    columns += [("ratio", "ratio to tCr ± SD"), ("amplitude", "amplitude (a.u.)"),
-                ("crlb", "CRLB %"), ("reliability", "reliability")]
+        columns += [("conc", "mM in tissue ± SD")]
+        if model:
+            columns += [("conc_total", "mM total SD (noise + model)")]
+        columns += [("molal", "mmol/kg tissue water ± SD")]
+    columns += [("ratio", "ratio to tCr ± SD")]
+    if model:
+        columns += [("ratio_total", "ratio total SD (noise + model)")]
+    columns += [("amplitude", "amplitude (a.u.)"), ("crlb", "CRLB %"),
+                ("reliability", "reliability")]
     warnings = [qc_flag_sentence(f.name, f.value, f.threshold) for f in qc.flags]
     warnings += [fit_flag_sentence(f, fit) for f in fit.flags  # collapsed: in the statement
                  if not f.startswith(("at_zero_bound:", "collapsed:"))]
@@ -310,7 +328,13 @@ def render_report(
            "is undefined ")
         + "are marked unreliable. Sums take the covariance of their members into account. "
         "Macromolecule and lipid components (grey) have amplitudes and ratios but no molar "
-        "concentration.")
+        "concentration."
+        + (" ± SD is the Cramér-Rao (noise) SD, valid only if the fit model is right. The total "
+           "SD (noise + model) adds in quadrature a model SD: the spread of the value when the "
+           "scan is refitted under alternative, equally defensible model choices (baseline "
+           "stiffness and knots, macromolecule amplitudes tied or free, width-prior spread, fit "
+           "range start). It is not a bound on every model error: a bias that all these "
+           "choices share does not show in it." if model else ""))
     figure_items = [{"caption": caption, "uri": png_data_uri(png)} for caption, png in figures]
     formula = "\n".join(f"{k}: {v}" for k, v in quant.formula.items())
     water_steps = ""
@@ -328,7 +352,8 @@ def render_report(
         warnings=warnings,
         remarks=remarks,
         result_columns=columns,
-        result_numeric=("conc", "molal", "ratio", "amplitude", "crlb"),
+        result_numeric=("conc", "conc_total", "molal", "ratio", "ratio_total", "amplitude",
+                        "crlb"),
         result_rows=display,
         results_legend=legend,
         figures=figure_items,

@@ -39,12 +39,19 @@ RESULT_COLUMNS: tuple[str, ...] = (
     "amplitude",
     "crlb_sd",
     "crlb_percent",
+    "amplitude_model_sd",
     "ratio_tcr",
     "ratio_tcr_sd",
+    "ratio_tcr_model_sd",
+    "ratio_tcr_total_sd",
     "conc_molar_mm",
     "conc_molar_sd_mm",
+    "conc_molar_model_sd_mm",
+    "conc_molar_total_sd_mm",
     "conc_molal_mmol_kg",
     "conc_molal_sd_mmol_kg",
+    "conc_molal_model_sd_mmol_kg",
+    "conc_molal_total_sd_mmol_kg",
     "fit_flag",
     "crlb_reliable",
     "snr",
@@ -126,11 +133,16 @@ def results_rows(fit: Any, quant: Any, qc: Any, *, scan_label: str) -> list[dict
     -------
     list of dict
         Keys :data:`RESULT_COLUMNS`; concentrations NaN without water referencing and for
-        rows whose kind is not in :data:`CONCENTRATION_KINDS`. ``crlb_reliable`` applies the
+        rows whose kind is not in :data:`CONCENTRATION_KINDS`. The ``*_sd`` columns are the
+        Cramér-Rao (statistical) SDs, ``*_model_sd`` the model uncertainty from the refits
+        under alternative model choices (:mod:`specproc.fit.sensitivity`) and ``*_total_sd``
+        ``sqrt(sd² + model_sd²)``; model and total NaN when the model uncertainty was not
+        estimated. ``crlb_reliable`` applies the
         CRLB limit of the QC thresholds (``[qc] crlb_percent_max``). ``fit_flag`` and
         ``qc_flags`` hold machine keys (``;``-separated); their sentences are in the report.
     """
     from specproc.fit import results_table
+    from specproc.quantify.sums import total_sd
 
     nan = float("nan")
     flags = ";".join(f.name for f in qc.flags)
@@ -143,6 +155,9 @@ def results_rows(fit: Any, quant: Any, qc: Any, *, scan_label: str) -> list[dict
             return nan if table is None else float(table.get(key, nan))
 
         molar = row["kind"] in CONCENTRATION_KINDS
+        ratio_model = get(quant.ratio_model_sd)
+        molar_model = get(quant.conc_molar_model_sd_mm) if molar else nan
+        molal_model = get(quant.conc_molal_model_sd_mmol_kg) if molar else nan
 
         out.append({
             "scan": scan_label,
@@ -151,12 +166,21 @@ def results_rows(fit: Any, quant: Any, qc: Any, *, scan_label: str) -> list[dict
             "amplitude": float(row["amplitude"]),
             "crlb_sd": float(row["crlb_sd"]),
             "crlb_percent": float(row["crlb_percent"]),
+            "amplitude_model_sd": get(quant.amplitude_model_sd),
             "ratio_tcr": get(quant.ratios),
             "ratio_tcr_sd": get(quant.ratio_sd),
+            "ratio_tcr_model_sd": ratio_model,
+            "ratio_tcr_total_sd": total_sd(get(quant.ratio_sd), ratio_model),
             "conc_molar_mm": get(quant.conc_molar_mm) if molar else nan,
             "conc_molar_sd_mm": get(quant.conc_molar_sd_mm) if molar else nan,
+            "conc_molar_model_sd_mm": molar_model,
+            "conc_molar_total_sd_mm": total_sd(
+                get(quant.conc_molar_sd_mm) if molar else nan, molar_model),
             "conc_molal_mmol_kg": get(quant.conc_molal_mmol_kg) if molar else nan,
             "conc_molal_sd_mmol_kg": get(quant.conc_molal_sd_mmol_kg) if molar else nan,
+            "conc_molal_model_sd_mmol_kg": molal_model,
+            "conc_molal_total_sd_mmol_kg": total_sd(
+                get(quant.conc_molal_sd_mmol_kg) if molar else nan, molal_model),
             "fit_flag": row["flag"],
             "crlb_reliable": crlb_reliable(row["crlb_percent"], limit),
             "snr": float(qc.snr),
