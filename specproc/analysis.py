@@ -57,6 +57,7 @@ import numpy as np
 
 from specproc._threads import blas_threads
 from specproc.errors import InvalidInputError
+from specproc.protocol import FIELD_TOLERANCE
 
 __all__ = [
     "KEY_RATIOS",
@@ -188,6 +189,12 @@ def _basis_summary(basis: Any, origin: str, protocol: Any) -> dict[str, Any]:
         info["macromolecule_rule"] = protocol.macromolecule_source
         info["timing"] = protocol.timing_text()
         info["timing_sources"] = dict(protocol.timing_sources)
+        info["mm_model"] = protocol.mm_model()
+        info["mm_text"] = protocol.mm_text()
+    else:
+        measured = basis.metadata.get("mm_model")
+        info["mm_model"] = dict(measured) if measured else {
+            "model": "parametrised" if "macromolecule" in basis.kinds else "none"}
     return info
 
 
@@ -410,9 +417,6 @@ class ScanResult:
 
 
 # ============================================================================ input checks
-#: Relative difference of field strength above which a basis does not match its scan (a 3 T
-#: basis on a 2.89 T scan is fine; common practice: within a few per cent).
-_FIELD_TOLERANCE = 0.03
 #: Difference of echo time above which a basis does not match its scan, s.
 _TE_TOLERANCE_S = 0.001
 #: In an unsuppressed water reference the water peak is hundreds to thousands of times the
@@ -464,7 +468,7 @@ def input_notes(scan: Any, water: Any, basis: Any, water_processed: Any = None) 
                      f"says {seq_scan}; the fit may be biased.")
     mhz_basis = float(getattr(basis, "spectrometer_mhz", 0.0) or 0.0)
     if mhz_basis > 0 and scan.spectrometer_mhz > 0 and abs(
-            mhz_basis / scan.spectrometer_mhz - 1.0) > _FIELD_TOLERANCE:
+            mhz_basis / scan.spectrometer_mhz - 1.0) > FIELD_TOLERANCE:
         notes.append(f"The basis was made for {mhz_basis:.1f} MHz but the scan was acquired at "
                      f"{scan.spectrometer_mhz:.1f} MHz; the fit may be biased.")
     te_basis = dict(getattr(basis, "timings_s", {}) or {}).get("te_s")

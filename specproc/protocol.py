@@ -42,19 +42,36 @@ Lorentzian width for every metabolite (:data:`PHANTOM_WIDTH_RULE`): the relaxati
 tissue T2, whose differences (e.g. NAA about 0.25 s against creatine about 0.15 s at 3 T) do
 not exist in a solution, where every metabolite relaxes slowly (T2 of several hundred ms) and
 the line widths are set by the field inhomogeneity shared by all of them.
+The macromolecule model is the parametrised components of ``macromolecules.toml`` unless a
+measured macromolecule spectrum is given (:mod:`specproc.mmspectrum`; Cudalbu et al., NMR
+Biomed 2021;34:e4393). Its file ``mm_spectrum`` and the choice ``mm_keep_lipids`` (keep the
+lipid components beside it) are taken, each, from the first of ``"option"`` (``specproc fit
+--mm-spectrum/--keep-lipids``), ``"manifest"`` (column ``mm_spectrum``) and ``"config"``
+(``[protocol] mm_spectrum``, ``mm_keep_lipids``) that gives it: the precedence of the
+sub-timings (:func:`_first_given`), without a header source. The value ``"none"`` (or an empty
+configuration string) means the parametrised components. The measured spectrum replaces them
+wherever the protocol includes macromolecules (the rule above, or the user's choice); it is
+checked against the scan's nucleus, field and TE when the protocol is resolved
+(:func:`specproc.mmspectrum.check_mm_spectrum`), and its content hash is part of
+:meth:`Protocol.key`.
 """
 
 from __future__ import annotations
 
 import math
+import os
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
+from pathlib import Path
 from typing import Any
 
 from specproc.errors import InvalidInputError
 
 __all__ = [
+    "FIELD_TOLERANCE",
     "MACROMOLECULE_RULE",
+    "MM_KEYS",
+    "MM_MEMBER",
     "PHANTOM_RULE",
     "PHANTOM_WIDTH_RULE",
     "SHORT_TE_S",
@@ -64,6 +81,7 @@ __all__ = [
     "parse_timings",
     "phantom_fit_config",
     "resolve_protocol",
+    "simulated_members",
 ]
 
 #: Echo times below this include the macromolecule components in a simulated basis, s
@@ -81,6 +99,17 @@ PHANTOM_WIDTH_RULE = (
     "phantom: one expected Lorentzian width for every metabolite (width_prior \"none\"; the "
     "relaxation table's T2 differences are those of tissue, not of a solution)"
 )
+#: Relative difference of spectrometer frequency above which a basis or a measured
+#: macromolecule spectrum does not belong to a scan (a 3 T basis on a 2.89 T scan is fine;
+#: common practice: within a few per cent).
+FIELD_TOLERANCE = 0.03
+
+#: Keys of the macromolecule model in the option, manifest and ``[protocol]`` layers.
+MM_KEYS: tuple[str, ...] = ("mm_spectrum", "mm_keep_lipids")
+
+#: Name of the measured macromolecule member of a basis (:mod:`specproc.mmspectrum`; the
+#: ``MM`` prefix puts it among the macromolecule patterns of the fit settings).
+MM_MEMBER = "MMmeasured"
 
 #: NIfTI-MRS header user key holding the sub-timings.
 TIMINGS_HEADER_KEY = "specproc_timings"
@@ -93,6 +122,17 @@ _ASSUMED = {
     "delays_s": "assumed: d = (TE/8, TE/4, TE/4, TE/4, TE/8)",
 }
 _SOURCES = ("option", "manifest", "config", "header")
+
+
+def _first_given(layers: Mapping[str, Mapping[str, Any]], key: str
+                 ) -> tuple[Any, str] | None:
+    """The value of ``key`` from the first layer of :data:`_SOURCES` order that gives it, and
+    that layer's name (the one precedence of every protocol choice); ``None`` when none does."""
+    for source in _SOURCES:
+        layer = layers.get(source) or {}
+        if key in layer:
+            return layer[key], source
+    return None
 
 
 def _time(value: Any, what: str, where: Any) -> float:
@@ -179,6 +219,16 @@ class Protocol:
     phantom : bool
         The scan is of a phantom (see the module docstring). Not a simulation input: it does
         not change the basis key, only how the analysis fits (:data:`PHANTOM_WIDTH_RULE`).
+    mm_spectrum : str or None
+        The measured macromolecule spectrum replacing the parametrised components (a path),
+        or ``None``: the parametrised components (when ``macromolecules``).
+    mm_spectrum_sha256 : str or None
+        Its content hash (part of :meth:`key`).
+    mm_keep_lipids : bool
+        With a measured spectrum, keep the lipid components of the basis too.
+    mm_sources : mapping of str to str
+        Where ``mm_spectrum`` and ``mm_keep_lipids`` came from (``"option"``, ``"manifest"``,
+        ``"config"``); empty for the defaults.
     """
 
     sequence: str
@@ -195,8 +245,17 @@ class Protocol:
     timing_sources: Mapping[str, str] = field(default_factory=dict)
     macromolecule_source: str = MACROMOLECULE_RULE
     phantom: bool = False
+    mm_spectrum: str | None = None
+    mm_spectrum_sha256: str | None = None
+    mm_keep_lipids: bool = False
+    mm_sources: Mapping[str, str] = field(default_factory=dict)
 
     def _inputs(self) -> dict[str, Any]:
+        return {**self._simulated(), **({} if self.mm_spectrum is None else {
+            "mm_spectrum_sha256": self.mm_spectrum_sha256,
+            "mm_keep_lipids": self.mm_keep_lipids})}
+
+    def _simulated(self) -> dict[str, Any]:
         return {
             "sequence": self.sequence, "field_t": self.field_t, "te_s": self.te_s,
             "te1_s": self.te1_s, "tm_s": self.tm_s,
@@ -207,13 +266,47 @@ class Protocol:
         }
 
     def simulation_args(self) -> dict[str, Any]:
-        """Keyword arguments of :func:`specproc.basis.simulate_basis` (``None`` left out)."""
-        return {k: v for k, v in self._inputs().items() if v is not None}
+        """Keyword arguments of :func:`specproc.basis.simulate_basis` (``None`` left out).
+
+        With a measured macromolecule spectrum only the lipid components are simulated among
+        the macromolecules (when kept): see :meth:`simulate`."""
+        args = {k: v for k, v in self._simulated().items() if v is not None}
+        if self.mm_spectrum is not None:
+            args["macromolecules"] = self.mm_keep_lipids
+        return args
+
+    def mm_model(self) -> dict[str, Any]:
+        """The macromolecule model, for results: ``model`` (``"none"``, ``"parametrised"`` or
+        ``"measured"``) and, for a measured spectrum, its file name (no folder), SHA-256,
+        whether the lipids were kept and where each choice came from."""
+        if not self.macromolecules:
+            return {"model": "none"}
+        if self.mm_spectrum is None:
+            return {"model": "parametrised"}
+        return {"model": "measured", "file": Path(self.mm_spectrum).name,
+                "sha256": self.mm_spectrum_sha256, "lipids_kept": self.mm_keep_lipids,
+                "sources": dict(self.mm_sources)}
+
+    def mm_text(self) -> str:
+        """The macromolecule model in words (reports, the command line)."""
+        model = self.mm_model()
+        if model["model"] == "none":
+            return "none"
+        if model["model"] == "parametrised":
+            return "parametrised components (macromolecules.toml)"
+        lipids = "; lipid components kept" if self.mm_keep_lipids else ""
+        source = self.mm_sources.get("mm_spectrum", "")
+        return (f"measured spectrum {model['file']} (sha256 {str(model['sha256'])[:12]}, "
+                f"from the {source}{lipids})")
 
     def to_dict(self) -> dict[str, Any]:
         """Plain JSON-able dict (for fit.json): the inputs and where the timings came from."""
-        return {**self._inputs(), "timing_sources": dict(self.timing_sources),
-                "macromolecule_source": self.macromolecule_source, "phantom": self.phantom}
+        inputs = self._inputs()
+        inputs.pop("mm_spectrum_sha256", None)
+        inputs.pop("mm_keep_lipids", None)
+        return {**inputs, "timing_sources": dict(self.timing_sources),
+                "macromolecule_source": self.macromolecule_source,
+                "phantom": self.phantom, "mm_model": self.mm_model()}
 
     def key(self) -> str:
         """Short content hash of the protocol, the specproc and engine versions and the
@@ -227,10 +320,18 @@ class Protocol:
                             "engine": ENGINE_VERSION, "definitions": definitions_hash()})[:20]
 
     def simulate(self, *, cache: bool = True, progress: Any = False) -> Any:
-        """The basis of this protocol (:func:`specproc.basis.simulate_basis`, cached)."""
+        """The basis of this protocol (:func:`specproc.basis.simulate_basis`, cached); with a
+        measured macromolecule spectrum, the simulated members (and lipids when kept) plus the
+        measured member (:func:`specproc.mmspectrum.with_measured_mm`)."""
         from specproc.basis import simulate_basis
 
-        return simulate_basis(**self.simulation_args(), cache=cache, progress=progress)
+        basis = simulate_basis(**self.simulation_args(), cache=cache, progress=progress)
+        if self.mm_spectrum is None:
+            return basis
+        from specproc.mmspectrum import load_mm_spectrum, with_measured_mm
+
+        mm = load_mm_spectrum(self.mm_spectrum, sha256=self.mm_spectrum_sha256)
+        return with_measured_mm(basis, mm, keep_lipids=self.mm_keep_lipids)
 
     def timing_text(self) -> str:
         """The sub-timing used and its source, in words (empty when the sequence has none)."""
@@ -283,6 +384,56 @@ def _header_timings(scan: Any) -> dict[str, Any]:
     return parse_timings(out, where=getattr(scan, "source", None), what="header timings")
 
 
+def simulated_members(config: Mapping[str, Any] | None) -> list[str] | None:
+    """The members to simulate that ``[fit] members`` of a configuration names (``None``: not
+    set, every default metabolite). The measured macromolecule member :data:`MM_MEMBER` may be
+    named there to be fitted; it is added to the basis, not simulated, and so left out."""
+    members = [str(m) for m in ((config or {}).get("fit") or {}).get("members") or []
+               if str(m).lower() != MM_MEMBER.lower()]
+    return members or None
+
+
+def _split_mm(table: Mapping[str, Any] | None
+              ) -> tuple[dict[str, Any] | None, dict[str, Any]]:
+    """A layer split into its sub-timings and its macromolecule keys (``None`` values and an
+    empty path dropped: "not given")."""
+    if not table or not isinstance(table, Mapping):
+        return table, {}  # type: ignore[return-value]
+    timings = {k: v for k, v in table.items() if k not in MM_KEYS}
+    mm = {k: table[k] for k in MM_KEYS
+          if k in table and table[k] is not None and table[k] != ""}
+    return timings, mm
+
+
+def _resolve_mm(layers: Mapping[str, Mapping[str, Any]], scan: Any, te_s: float | None,
+                macromolecules: bool) -> dict[str, Any]:
+    """The macromolecule-model fields of a :class:`Protocol` (read and checked file)."""
+    spectrum = _first_given(layers, "mm_spectrum")
+    lipids = _first_given(layers, "mm_keep_lipids")
+    sources: dict[str, str] = {}
+    keep = False
+    if lipids is not None:
+        value, sources["mm_keep_lipids"] = lipids
+        if not isinstance(value, bool):
+            raise InvalidInputError(f"mm_keep_lipids must be true or false, got {value!r}")
+        keep = value
+    if spectrum is None or not macromolecules:
+        return {}
+    value, source = spectrum
+    if not isinstance(value, str | os.PathLike):
+        raise InvalidInputError(f"mm_spectrum must be a file name, got {value!r}")
+    if str(value).strip().lower() == "none":
+        return {}
+    from specproc.mmspectrum import check_mm_spectrum, load_mm_spectrum
+
+    mm = load_mm_spectrum(value)
+    check_mm_spectrum(mm, spectrometer_mhz=scan.spectrometer_mhz, te_s=te_s,
+                      nucleus=scan.nucleus)
+    sources["mm_spectrum"] = source
+    return {"mm_spectrum": str(Path(value).resolve()), "mm_spectrum_sha256": mm.sha256,
+            "mm_keep_lipids": keep, "mm_sources": sources}
+
+
 def resolve_protocol(
     scan: Any,
     *,
@@ -309,8 +460,11 @@ def resolve_protocol(
         Sub-timings (``te1_s``, ``tm_s``, ``delays_s``) from the command line and from the
         manifest. An option the sequence has no use for is an error; a manifest or
         configuration value that does not apply is ignored (one table serves every sequence).
+        They may also hold the macromolecule model (:data:`MM_KEYS`: ``mm_spectrum``, a path
+        or ``"none"``; ``mm_keep_lipids``, a bool; ``None`` values mean "not given").
     config : mapping, optional
-        The full configuration (its ``[protocol]`` table is read) or ``None``.
+        The full configuration (its ``[protocol]`` table is read) or ``None``. A relative
+        ``mm_spectrum`` there is relative to the working directory.
     metabolites : sequence of str, optional
         Members (default: ``[fit] members`` of ``config`` when not empty, else all).
     macromolecules : bool, optional
@@ -322,7 +476,8 @@ def resolve_protocol(
     Raises
     ------
     InvalidInputError
-        When the sequence, TE (TM for STEAM) is unknown, or for a bad timing.
+        When the sequence, TE (TM for STEAM) is unknown, for a bad timing, or for a measured
+        macromolecule spectrum that cannot be read or does not belong to the scan.
     """
     from specproc.constants import field_from_larmor
     from specproc.spins.sequences import normalise_sequence_name
@@ -348,7 +503,10 @@ def resolve_protocol(
     elif not field_t > 0:
         raise InvalidInputError(f"the field strength must be positive, got {field_t:g} T")
     te = scan.te_s if te_s is None else float(te_s)
-    cfg_timings = (config or {}).get("protocol") if config is not None else None
+    cfg_table = (config or {}).get("protocol") if config is not None else None
+    option, mm_option = _split_mm(option)
+    manifest, mm_manifest = _split_mm(manifest)
+    cfg_timings, mm_config = _split_mm(cfg_table)
     layers = {
         "option": parse_timings(option, what="option"),
         "manifest": parse_timings(manifest, where=where, what="manifest timings"),
@@ -364,12 +522,9 @@ def resolve_protocol(
             where)
     timings: dict[str, Any] = {}
     sources: dict[str, str] = {}
-    if key is not None:
-        for source in _SOURCES:
-            if key in layers[source]:
-                timings[key] = layers[source][key]
-                sources[key] = source
-                break
+    given = None if key is None else _first_given(layers, key)
+    if key is not None and given is not None:
+        timings[key], sources[key] = given
     if seq == "semi-laser" and "delays_s" not in timings and te is not None:
         timings["delays_s"] = (te / 8, te / 4, te / 4, te / 4, te / 8)
         sources["delays_s"] = _ASSUMED["delays_s"]
@@ -388,8 +543,7 @@ def resolve_protocol(
             "the scan does not give its STEAM mixing time (give --tm-ms, a tm_ms manifest "
             "column or [protocol] tm_s)", where)
     if metabolites is None and config is not None:
-        members = list((config.get("fit") or {}).get("members") or [])
-        metabolites = members or None
+        metabolites = simulated_members(config)
     if macromolecules is None and phantom:
         macromolecules, mm_source = False, PHANTOM_RULE
     elif macromolecules is None:
@@ -397,13 +551,15 @@ def resolve_protocol(
         mm_source = MACROMOLECULE_RULE
     else:
         mm_source = "chosen"
+    mm = _resolve_mm({"option": mm_option, "manifest": mm_manifest, "config": mm_config},
+                     scan, te, bool(macromolecules))
     protocol = Protocol(
         sequence=seq, field_t=round(float(field_t), 4), te_s=te, dwell_s=float(scan.dwell_s),
         n_points=int(scan.n_points), centre_ppm=float(scan.reference_ppm),
         metabolites=None if metabolites is None else tuple(str(m) for m in metabolites),
         macromolecules=bool(macromolecules), te1_s=timings.get("te1_s"),
         tm_s=timings.get("tm_s"), delays_s=timings.get("delays_s"), timing_sources=sources,
-        macromolecule_source=mm_source, phantom=bool(phantom),
+        macromolecule_source=mm_source, phantom=bool(phantom), **mm,
     )
     from specproc.spins.sequences import build_sequence
 

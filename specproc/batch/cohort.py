@@ -9,9 +9,12 @@
     lists them, ``;``-separated) or ``failed`` (``reason`` says why, in one line). ``gm``,
     ``wm``, ``csf`` are the voxel's tissue fractions used, ``tissue_source`` says where they
     came from (``maps`` or ``labels``: computed from the anatomy, :mod:`specproc.tissue`, with
-    the share of the voxel in no map in ``unsegmented``; ``given``: manifest numbers). The
-    edited QC columns (:data:`specproc.report.edited.EDITED_QC_FIELDS`: fit error of the DIFF
-    model and subtraction artefact at 3.2 ppm in per cent, ON/OFF pairs rejected) are filled
+    the share of the voxel in no map in ``unsegmented``; ``given``: manifest numbers).
+    ``mm_model`` is the macromolecule model of the scan's basis
+    (:func:`specproc.batch.task.mm_model_label`: ``none``, ``parametrised`` or
+    ``measured:<file>:<hash>``). The edited QC columns
+    (:data:`specproc.report.edited.EDITED_QC_FIELDS`: fit error of the DIFF model and
+    subtraction artefact at 3.2 ppm in per cent, ON/OFF pairs rejected) are filled
     for J-difference edited scans only; their flags are ``edited:<key>``. In ``cohort.tsv`` an
     edited scan has the rows ``GABA+`` (ratio to tCr, water-referenced mM, bounds) and, with
     tissue fractions, ``GABA+_alpha`` (alpha-corrected mM), of kind ``edited``.
@@ -54,7 +57,7 @@ COHORT_COLUMNS: tuple[str, ...] = (
 #: Columns of ``cohort_qc.tsv``.
 QC_COLUMNS: tuple[str, ...] = (
     *_ID_COLUMNS, "scan", "water", "status", *QC_FIELDS, *EDITED_QC_FIELDS, "gm", "wm", "csf",
-    "unsegmented", "tissue_source", "flags", "reason",
+    "unsegmented", "tissue_source", "mm_model", "flags", "reason",
 )
 _TISSUE_FIELDS = ("gm", "wm", "csf", "unsegmented", "tissue_source")
 
@@ -151,7 +154,7 @@ def _write_scan(entry: ScanEntry, summary: Mapping[str, Any], main: TsvWriter,
     tissue = dict(summary.get("tissue") or {})
     qc_file.write((*ids, entry.scan_label, entry.water_label, status,
                    *(qc.get(k) for k in (*QC_FIELDS, *EDITED_QC_FIELDS)),
-                   *(tissue.get(k) for k in _TISSUE_FIELDS),
+                   *(tissue.get(k) for k in _TISSUE_FIELDS), summary.get("mm_model", ""),
                    ";".join(flags), reason))
     if status == "failed":
         counts["failed"] += 1

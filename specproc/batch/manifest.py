@@ -38,6 +38,9 @@ column         required  meaning
                          spaces (overrides the configuration and the header)
 ``tr_ms``      no        repetition time, ms (overrides the header)
 ``sequence``   no        sequence name (``press``, ``steam``, ``semi-laser``, ...; overrides)
+``mm_spectrum`` no       measured macromolecule spectrum of the scan's protocol (one averaged
+                         FID; overrides ``[protocol] mm_spectrum``, see
+                         :mod:`specproc.mmspectrum`); ``none``: the parametrised components
 =============  ========  ===================================================================
 
 An empty cell means "not given". ``n/a`` (the BIDS spelling) is read as empty too.
@@ -87,7 +90,7 @@ __all__ = [
 #: Columns a manifest may have; only ``scan`` is required.
 MANIFEST_COLUMNS: tuple[str, ...] = (
     "scan", "water", "subject", "session", "scan_id", "gm", "wm", "csf",
-    "te_ms", "tm_ms", "tr_ms", "sequence", "te1_ms", "delays_ms", "kind", *(
+    "te_ms", "tm_ms", "tr_ms", "sequence", "te1_ms", "delays_ms", "kind", "mm_spectrum", *(
         "gm_map", "wm_map", "csf_map", "labels", "label_table", "anatomy"),
 )
 #: Manifest columns that name segmentation files (paths relative to the manifest).
@@ -129,6 +132,10 @@ class ScanEntry:
         when not given). ``"phantom"`` selects the phantom protocol: a basis without
         macromolecules, and the scan is listed on the cohort page but not summarised with
         the others.
+    mm_spectrum : str or None
+        Absolute path of the measured macromolecule spectrum of the manifest, or ``"none"``
+        (the parametrised components), or ``None`` when not given (the ``manifest`` source of
+        the macromolecule model of :func:`specproc.protocol.resolve_protocol`).
     """
 
     key: str
@@ -143,6 +150,7 @@ class ScanEntry:
     timings: Mapping[str, Any] = field(default_factory=dict)
     kind: str = ""
     tissue_maps: Any = None
+    mm_spectrum: str | None = None
 
     @property
     def is_phantom(self) -> bool:
@@ -163,7 +171,15 @@ class ScanEntry:
             **({"timings": {k: list(v) if isinstance(v, tuple) else v
                             for k, v in sorted(self.timings.items())}} if self.timings else {}),
             **({"kind": self.kind} if self.kind else {}),
+            **({"mm_spectrum": Path(self.mm_spectrum).name}
+               if self.mm_spectrum is not None else {}),
         }
+
+    def protocol_layer(self) -> dict[str, Any]:
+        """The manifest layer of :func:`specproc.protocol.resolve_protocol`: the sub-timings
+        and the macromolecule spectrum."""
+        return {**self.timings, **({"mm_spectrum": self.mm_spectrum}
+                                   if self.mm_spectrum is not None else {})}
 
 
 def _strip_prefix(label: str, prefix: str) -> str:
@@ -383,6 +399,11 @@ def read_manifest(path: str | os.PathLike[str]) -> list[ScanEntry]:
             cells = [c for c in re.split(r"[;,\s]+", row["delays_ms"].strip()) if c]
             timings["delays_s"] = tuple(_number(c, "delays_ms", line, where) / 1e3
                                         for c in cells)
+        mm_spectrum = None
+        if "mm_spectrum" in row:
+            cell = row["mm_spectrum"].strip()
+            mm_spectrum = "none" if cell.lower() == "none" else str(
+                _resolve(base, cell, "mm_spectrum", line, where))
         key = row.get("scan_id", "").strip()
         key = clean_scan_id(key, line, where) if key else scan_key(
             subject=subject, session=session, scan_label=row["scan"].strip()
@@ -392,7 +413,7 @@ def read_manifest(path: str | os.PathLike[str]) -> list[ScanEntry]:
             scan_label=row["scan"].strip(), water_label=row.get("water", "").strip(),
             subject=subject, session=session, tissue=tissue, overrides=overrides,
             timings=timings, kind=row.get("kind", "").strip().lower(),
-            tissue_maps=tissue_maps,
+            tissue_maps=tissue_maps, mm_spectrum=mm_spectrum,
         ))
     if not entries:
         raise InvalidInputError("the manifest lists no scans", where)

@@ -51,7 +51,7 @@ from specproc.batch.task import (
     write_outcome,
 )
 from specproc.errors import InvalidInputError
-from specproc.protocol import Protocol
+from specproc.protocol import Protocol, simulated_members
 
 __all__ = [
     "LOCK_NAME",
@@ -159,7 +159,7 @@ def _prepare(entries: Sequence[ScanEntry], *, config: Mapping[str, Any], config_
                     if path is not None and (role != "label_table" or Path(path).is_file())}
             scan = apply_overrides(load(entry.scan_path), entry.overrides)
             # the protocol as `specproc fit` resolves it (PRESS for an edited scan)
-            protocol = resolve_protocol(scan, manifest=entry.timings, config=config,
+            protocol = resolve_protocol(scan, manifest=entry.protocol_layer(), config=config,
                                         metabolites=metabolites, macromolecules=macromolecules,
                                         phantom=entry.is_phantom)
             conditions = None
@@ -587,8 +587,7 @@ def run_batch(
     out.mkdir(parents=True, exist_ok=True)
     cfg = dict(config) if config is not None else load_config(None)
     if metabolites is None:
-        members = list((cfg.get("fit") or {}).get("members") or [])
-        metabolites = members or None
+        metabolites = simulated_members(cfg)
     keys = [e.key.casefold() for e in entries]
     if len(set(keys)) != len(keys) or not all(keys):
         raise InvalidInputError("scan identifiers are not unique (ignoring case) or empty")
@@ -599,6 +598,11 @@ def run_batch(
         from specproc.spins.systems import load_metabolites
 
         load_metabolites(list(metabolites))  # unknown names: one clear error before any work
+    mm_file = str((cfg.get("protocol") or {}).get("mm_spectrum") or "")
+    if mm_file and mm_file.strip().lower() != "none":
+        from specproc.mmspectrum import load_mm_spectrum
+
+        load_mm_spectrum(mm_file)  # an unreadable configured file: one error before any work
     with output_lock(out):
         _run_entries(entries, out, cfg, summary, workers=workers, scheduler=scheduler,
                      metabolites=metabolites, macromolecules=macromolecules,

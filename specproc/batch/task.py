@@ -36,6 +36,7 @@ __all__ = [
     "SUMMARY_NAME",
     "done_matches",
     "failure_reason",
+    "mm_model_label",
     "process_one",
     "read_json",
     "run_task",
@@ -286,7 +287,19 @@ def summarise_fit_json(document: Mapping[str, Any]) -> dict[str, Any]:
         "spectrum": {k: (document.get("spectrum") or {}).get(k) for k in ("ppm", "fit")}
         if isinstance(document.get("spectrum"), Mapping) else None,
         "tissue": _tissue_summary(document.get("tissue")),
+        "mm_model": mm_model_label((document.get("basis") or {}).get("mm_model")),
     }
+
+
+def mm_model_label(model: Any) -> str:
+    """The macromolecule model of fit.json's ``basis.mm_model`` in one cell: ``none``,
+    ``parametrised`` or ``measured:<file>:<first 12 digits of its SHA-256>`` ("" unknown)."""
+    if not isinstance(model, Mapping):
+        return ""
+    kind = str(model.get("model") or "")
+    if kind != "measured":
+        return kind
+    return f"measured:{model.get('file', '')}:{str(model.get('sha256') or '')[:12]}"
 
 
 def _tissue_summary(tissue: Any) -> dict[str, Any] | None:

@@ -13,7 +13,10 @@ Without ``--basis`` (or with ``--basis auto``) the basis is simulated, and cache
 scan's protocol (:mod:`specproc.protocol`). ``--te-ms``, ``--tr-ms``, ``--sequence`` and
 ``--tm-ms`` replace the header's values (as the manifest columns of ``specproc batch`` do);
 ``--te1-ms``, ``--tm-ms`` and ``--delays-ms`` are the basis sub-timings with the highest
-precedence; ``--field`` sets the field of the simulated basis only.
+precedence; ``--field`` sets the field of the simulated basis only. ``--mm-spectrum FILE``
+fits a measured macromolecule spectrum in place of the parametrised components
+(:mod:`specproc.mmspectrum`; precedence over the manifest and the configuration as for the
+timings, :mod:`specproc.protocol`).
 """
 
 from __future__ import annotations
@@ -101,6 +104,14 @@ def tissue_option(gm: float | None, wm: float | None, csf: float | None
 @click.option("--phantom", is_flag=True, default=False,
               help="The scan is of a phantom: no macromolecules, and one expected line width "
                    "for every metabolite (the relaxation table is of tissue).")
+@click.option("--mm-spectrum", "mm_spectrum", metavar="FILE|none", default=None,
+              help="Measured macromolecule spectrum (one averaged FID acquired with "
+                   "metabolite nulling at the scan's field and TE, e.g. NIfTI-MRS), fitted as "
+                   "one member in place of the parametrised macromolecule components; 'none': "
+                   "the parametrised ones (default: manifest, [protocol] mm_spectrum).")
+@click.option("--keep-lipids/--no-keep-lipids", "keep_lipids", default=None,
+              help="With --mm-spectrum, keep the lipid components too (default: "
+                   "[protocol] mm_keep_lipids, false).")
 @click.option("--title", default=None, help="Label of the scan (default: the file name).")
 @click.option("-o", "--output", "out_dir", required=True, metavar="OUTDIR",
               type=click.Path(file_okay=False, path_type=Path),
@@ -112,7 +123,8 @@ def fit_command(scan_file: Path, water_file: Path | None, gm: float | None, wm: 
                 field_t: float | None, te_ms: float | None, tr_ms: float | None,
                 sequence: str | None, te1_ms: float | None, tm_ms: float | None,
                 delays_ms: str | None, macromolecules: bool | None, phantom: bool,
-                title: str | None, out_dir: Path) -> None:
+                mm_spectrum: str | None, keep_lipids: bool | None, title: str | None,
+                out_dir: Path) -> None:
     """Analyse SCAN: preprocess, fit, quantify, QC; write results, fit.json and report.html."""
     from specproc.analysis import analyse_scan, resolve_config, write_scan_outputs
     from specproc.batch.task import apply_overrides
@@ -137,7 +149,8 @@ def fit_command(scan_file: Path, water_file: Path | None, gm: float | None, wm: 
     if sequence:
         overrides["sequence"] = sequence
     timings = {"te1_s": _ms(te1_ms, "--te1-ms"), "tm_s": overrides.get("tm_s"),
-               "delays_s": _delays(delays_ms)}
+               "delays_s": _delays(delays_ms), "mm_spectrum": mm_spectrum,
+               "mm_keep_lipids": keep_lipids}
     config, _ = resolve_config(config_file)
     scan = apply_overrides(load(scan_file), overrides)
     water = load(water_file) if water_file is not None else None
@@ -147,6 +160,9 @@ def fit_command(scan_file: Path, water_file: Path | None, gm: float | None, wm: 
         tissue = tissue_fractions_from_files(scan_file, map_files)
     basis = protocol = None
     if basis_choice and basis_choice != "auto":
+        if mm_spectrum is not None or keep_lipids is not None:
+            raise click.UsageError("--mm-spectrum and --keep-lipids change a simulated basis; "
+                                   "they cannot be used with --basis FILE")
         basis = Path(basis_choice)
         if not basis.is_file():
             raise InvalidInputError("basis file not found", basis)
@@ -167,6 +183,8 @@ def fit_command(scan_file: Path, water_file: Path | None, gm: float | None, wm: 
     click.echo(result.fit.to_text().rstrip())
     if result.protocol is not None and result.protocol.timing_text():
         click.echo(f"basis timing: {result.protocol.timing_text()}")
+    if result.protocol is not None and result.protocol.macromolecules:
+        click.echo(f"macromolecules: {result.protocol.mm_text()}")
     conc = result.conc_mm
     if conc:
         click.echo("water-referenced concentrations (mM of GM+WM tissue): " + ", ".join(

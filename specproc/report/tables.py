@@ -338,6 +338,8 @@ def methods_rows(
         f"; {len(basis_info.get('names', []))} members")
     if basis_info.get("timing"):
         add(ana, "basis sub-timing (source)", basis_info["timing"])
+    if basis_info.get("mm_text"):
+        add(ana, "macromolecule model", basis_info["mm_text"])
     add(ana, "fitting model", (
         f"linear combination over {fit.fit_range_ppm[0]:g}-{fit.fit_range_ppm[1]:g} ppm, "
         "shared Lorentzian damping per group, shared Gaussian broadening, zero/first-order "
