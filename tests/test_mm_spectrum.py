@@ -292,3 +292,24 @@ def test_batch_manifest_column_and_cohort_record(files, scan_file, tmp_path, mon
     result = CliRunner().invoke(main, ["batch", str(manifest), "-o", str(tmp_path / "r2")])
     assert result.exit_code == 2
     assert "mm_spectrum file 'nowhere.nii.gz' does not exist" in result.output
+
+
+def test_generator_mm_spectrum_passes_the_validator_and_fits_its_scans(tmp_path):
+    """The validation generator's "measured" MM spectrum (its own NIfTI-MRS writer) passes the
+    standard's validator and is accepted for a scan of its field and TE."""
+    import importlib
+    import sys
+    from pathlib import Path
+
+    from test_nifti_mrs_validator import validate
+
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "benchmarks" / "validation"))
+    gen = importlib.import_module("generate")
+    specs = [s for s in gen.plan_corpus(preset="ci")][:2]
+    (record,) = gen.write_measured_mm(tmp_path, specs)
+    path = tmp_path / "mm" / record["file"]
+    assert record["file"] == "mm_3T_TE30.nii.gz"
+    validate(path)
+    p = resolve_protocol(plain_scan(spectrometer_mhz=record["spectrometer_mhz"]),
+                         option={"mm_spectrum": str(path)})
+    assert p.mm_model()["model"] == "measured"

@@ -13,7 +13,12 @@ writes into OUTDIR (created; never commit it):
   ``kind = phantom`` for the phantoms, as a user marks them);
 * ``truth.json``: every drawn parameter of every scan and the true values;
 * ``truth.tsv``: one row per scan and measure with the relaxation-weighted ratio to tCr and,
-  for tissue scans, the water-referenced concentration (mM of GM+WM tissue).
+  for tissue scans, the water-referenced concentration (mM of GM+WM tissue);
+* ``mm/mm_<field>T_TE<te>.nii.gz`` and ``mm/mm_spectra.json``: a "measured" macromolecule
+  spectrum per field and TE of the tissue scans, as a user would have one (a cohort average:
+  the MM model at its nominal parameters with its own noise; :data:`MEASURED_MM_SNR`), for
+  ``specproc fit --mm-spectrum`` / the manifest column ``mm_spectrum`` (``score.py
+  --mm-spectra``); ``--mm-only`` writes just these.
 
 What the generator models, and why it is independent of the fit
 ----------------------------------------------------------------
@@ -94,6 +99,7 @@ __all__ = [
     "generate",
     "plan_corpus",
     "select_subset",
+    "write_measured_mm",
     "write_nifti_mrs",
 ]
 
@@ -214,6 +220,21 @@ MM_LINES: tuple[tuple[float, float, float, float], ...] = (
 )
 #: Macromolecule T2 by field, s (short; from memory, e.g. about 20-40 ms at 3 T).
 MM_T2_S = {1.5: 0.045, 3.0: 0.035, 7.0: 0.025}
+
+#: Measured macromolecule spectra written beside the corpus (``mm/``), one per field and TE of
+#: the tissue scans, as a user would have them: the generator's MM model at its nominal
+#: parameters (no per-subject scatter of amplitudes, positions, widths or T2), decayed to the
+#: scan's TE, with the line shape of a well-shimmed acquisition (a symmetric Voigt, half
+#: Lorentzian, scaled so that an NAA singlet would have the FWHM below: the narrow end of the
+#: corpus's widths, as after frequency alignment of a cohort; this generator's choice) and its
+#: own white noise (height of the tallest MM line over the noise SD of the real spectrum:
+#: :data:`MEASURED_MM_SNR`, about what a cohort average of metabolite-nulled scans gives, from
+#: memory). Such a spectrum is not the exact MM signal of any one scan (which has its subject's
+#: scatter and line shape). Metabolite residues of an imperfect nulling are not modelled.
+MEASURED_MM_NAA_FWHM_HZ = {1.5: 3.0, 3.0: 4.0, 7.0: 9.0}
+MEASURED_MM_SNR = 50.0
+#: Seed key of the measured MM spectra (apart from every scan's keys).
+MEASURED_MM_SEED_KEY = 77
 
 #: Phantom composition, mM (a common brain-like phantom recipe, from memory; choline as GPC).
 PHANTOM_MM = {"NAA": 12.5, "Cr": 10.0, "GPC": 3.0, "mI": 7.5, "Glu": 12.5, "Lac": 5.0}
@@ -762,6 +783,70 @@ def write_nifti_mrs(path: Path, data: np.ndarray, *, dwell_s: float, meta: dict[
     nib.save(img, str(path))
 
 
+def measured_mm_name(field_t: float, te_s: float) -> str:
+    """File name of the measured MM spectrum of a field and TE (``mm_3T_TE30.nii.gz``)."""
+    return f"mm_{field_t:g}T_TE{te_s * 1e3:g}.nii.gz"
+
+
+def measured_mm_fid(field_t: float, te_s: float, *, rng: np.random.Generator
+                    ) -> tuple[np.ndarray, dict[str, Any]]:
+    """The measured MM spectrum of a field and TE (see :data:`MEASURED_MM_SNR`) and its record."""
+    nf = _nominal_field(field_t)
+    mhz = GAMMA_MHZ_PER_T * field_t
+    dwell = 1.0 / SPECTRAL_WIDTH_HZ[nf]
+    t = np.arange(N_POINTS) * dwell
+    t2_mm = MM_T2_S[nf]
+    fid = np.zeros(N_POINTS, dtype=np.complex128)
+    for shift, spread, amp30, wfac in MM_LINES:
+        a = amp30 * math.exp(-(te_s - 0.030) / t2_mm)
+        lw = wfac / (math.pi * t2_mm)
+        for dpp, w in ((-spread, 0.25), (0.0, 0.5), (spread, 0.25)):
+            nu = (shift + dpp - WATER_PPM_37C) * mhz
+            fid += a * w * np.exp(-2j * np.pi * nu * t - np.pi * lw * t)
+    shape = {"weights": [1.0], "offsets": [0.0], "lorentz_fraction": 0.5, "spread": 0.0}
+    scale_hz = _solve_scale(shape, MEASURED_MM_NAA_FWHM_HZ[nf], T2_S[nf]["NAA"], dwell)
+    fid *= _shape_fid(shape, scale_hz, t)
+    half = np.concatenate([[fid[0] * 0.5], fid[1:]])
+    height = float(np.max(np.fft.fft(half).real))
+    sigma = height / (MEASURED_MM_SNR * math.sqrt(N_POINTS))
+    fid = fid + rng.normal(0, sigma, N_POINTS) + 1j * rng.normal(0, sigma, N_POINTS)
+    record = {"field_t": field_t, "te_s": te_s, "spectrometer_mhz": mhz, "dwell_s": dwell,
+              "n_points": N_POINTS, "mm_t2_s": t2_mm, "line_shape": {**shape,
+                                                                    "scale_hz": scale_hz},
+              "naa_fwhm_hz": MEASURED_MM_NAA_FWHM_HZ[nf], "snr": MEASURED_MM_SNR,
+              "noise_sd": sigma}
+    return fid, record
+
+
+def write_measured_mm(out_dir: str | Path, specs: Iterable[ScanSpec], *,
+                      seed: int = DEFAULT_SEED) -> list[dict[str, Any]]:
+    """Write ``out_dir/mm/<name>`` (:func:`measured_mm_name`) for every field and TE of the
+    tissue scans of ``specs``, and ``out_dir/mm/mm_spectra.json`` with their records."""
+    folder = Path(out_dir) / "mm"
+    folder.mkdir(parents=True, exist_ok=True)
+    protocols = sorted({(s.field_t, s.te_s) for s in specs if not s.phantom})
+    records = []
+    for field_t, te_s in protocols:
+        rng = _rng(seed, MEASURED_MM_SEED_KEY, round(field_t * 10), round(te_s * 1e3))
+        fid, record = measured_mm_fid(field_t, te_s, rng=rng)
+        meta = {
+            "SpectrometerFrequency": [round(record["spectrometer_mhz"], 6)],
+            "ResonantNucleus": ["1H"], "EchoTime": te_s, "RepetitionTime": 2.5,
+            "SequenceName": "PRESS",
+            "ProtocolName": "validation corpus: measured macromolecule spectrum (metabolite "
+                            "nulled, cohort average)",
+            "WaterSuppressed": True,
+        }
+        name = measured_mm_name(field_t, te_s)
+        write_nifti_mrs(folder / name, fid, dwell_s=record["dwell_s"], meta=meta, dim_tags=[])
+        records.append({"file": name, **record})
+    (folder / "mm_spectra.json").write_text(json.dumps(
+        {"generator": "benchmarks/validation/generate.py", "seed": seed,
+         "caution": "Research use only; not a medical device.", "spectra": records},
+        indent=1) + "\n")
+    return records
+
+
 def generate(out_dir: str | Path, *, seed: int = DEFAULT_SEED, preset: str = "full",
              subset: int | None = None, scan_ids: Iterable[str] | None = None,
              progress: bool = False) -> list[dict[str, Any]]:
@@ -814,6 +899,7 @@ def generate(out_dir: str | Path, *, seed: int = DEFAULT_SEED, preset: str = "fu
         if progress:
             print(f"[{k + 1}/{len(specs)}] {spec.scan_id}", file=sys.stderr)
     _write_tables(out, rows, truths, seed, preset)
+    write_measured_mm(out, specs, seed=seed)
     return truths
 
 
@@ -852,7 +938,14 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser.add_argument("--subset", type=int, default=None, metavar="N",
                         help="about N scans spread over the categories")
     parser.add_argument("--seed", type=int, default=DEFAULT_SEED)
+    parser.add_argument("--mm-only", action="store_true",
+                        help="write only the measured macromolecule spectra (mm/) of the preset")
     args = parser.parse_args(argv)
+    if args.mm_only:
+        records = write_measured_mm(args.out_dir, plan_corpus(args.seed, args.preset),
+                                    seed=args.seed)
+        print(f"wrote {len(records)} measured macromolecule spectra into {args.out_dir}/mm")
+        return 0
     truths = generate(args.out_dir, seed=args.seed, preset=args.preset, subset=args.subset,
                       progress=True)
     print(f"wrote {len(truths)} scans and water references, manifest.tsv, truth.json, "

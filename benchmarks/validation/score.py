@@ -4,6 +4,7 @@ Usage::
 
     python benchmarks/validation/score.py CORPUS [-o RUNDIR] [--subset N] [--workers 2]
                                           [--score-only] [--json FILE]
+                                          [--mm-spectra DIR] [--baseline RUNDIR]
 
 1. When ``CORPUS/manifest.tsv`` does not exist the corpus is generated first
    (``generate.py``; with ``--subset N`` only those scans).
@@ -20,6 +21,13 @@ Usage::
    ``conc_molar_total_sd_mm``), else the Cramér-Rao SD alone (``ratio_tcr_sd``,
    ``conc_molar_sd_mm``); an error counts as covered when ``|estimate - truth| <= 2 × SD``. The
    coverage of the Cramér-Rao SD alone is printed as a second table.
+
+With ``--mm-spectra DIR`` (the folder ``mm/`` that ``generate.py`` writes beside the corpus;
+``generate.py OUT --mm-only`` writes it alone) the run uses the "measured" macromolecule
+spectrum of each tissue scan's field and TE: a copy of the manifest with absolute paths and
+the column ``mm_spectrum`` is written into RUNDIR (``manifest-mm.tsv``) and run instead (and
+``specproc fit`` gets ``--mm-spectrum``). ``--baseline RUNDIR0`` adds a table of the median
+|error| of RUNDIR0 (for example a run with the parametrised components) beside this run's.
 
 It prints markdown tables per category (3 T TE 30 by SNR band, 1.5 T, 7 T, TE 144, lactate,
 phantoms, timing not given): median and 95th percentile of |error| and the covered fraction,
@@ -151,6 +159,31 @@ def manifest_with_kind(corpus: Path, manifest: Path, run_dir: Path) -> Path:
     return path
 
 
+def mm_manifest(corpus: Path, manifest: Path, mm_dir: Path, run_dir: Path) -> Path:
+    """A copy of ``manifest`` with absolute paths and the column ``mm_spectrum`` (the measured MM
+    spectrum of each tissue scan's field and TE in ``mm_dir``; empty for phantoms), in RUNDIR."""
+    truth = {t["scan_id"]: t for t in json.loads((corpus / "truth.json").read_text())["scans"]}
+    with open(manifest, newline="") as fh:
+        reader = csv.DictReader(fh, delimiter="\t")
+        fields = [*list(reader.fieldnames or []), "mm_spectrum"]
+        rows = list(reader)
+    base = manifest.resolve().parent
+    for row in rows:
+        for column in ("scan", "water"):
+            if row.get(column):
+                row[column] = str(base / row[column])
+        spec = truth[row["scan_id"]]["spec"]
+        path = mm_dir.resolve() / gen.measured_mm_name(spec["field_t"], spec["te_s"])
+        row["mm_spectrum"] = "" if spec["phantom"] or not path.is_file() else str(path)
+    run_dir.mkdir(parents=True, exist_ok=True)
+    out = run_dir / "manifest-mm.tsv"
+    with open(out, "w", newline="") as fh:
+        writer = csv.DictWriter(fh, fieldnames=fields, delimiter="\t", lineterminator="\n")
+        writer.writeheader()
+        writer.writerows(rows)
+    return out
+
+
 def run_batch(manifest: Path, run_dir: Path, workers: int) -> dict[str, float]:
     """``specproc batch MANIFEST -o RUNDIR --workers N``; wall and children's CPU time, s."""
     cmd = [*specproc_command(), "batch", str(manifest), "-o", str(run_dir),
@@ -181,6 +214,8 @@ def run_fit_cli(corpus: Path, manifest: Path, out_root: Path, workers: int) -> d
                "-o", str(out_root / row["scan_id"])]
         if row.get("kind") == "phantom":
             cmd.append("--phantom")
+        if row.get("mm_spectrum"):
+            cmd += ["--mm-spectrum", row["mm_spectrum"]]
         for tissue in ("gm", "wm", "csf"):
             if row.get(tissue):
                 cmd += [f"--{tissue}", row[tissue]]
@@ -346,6 +381,29 @@ def markdown(result: dict[str, Any]) -> str:
     return "\n".join(lines)
 
 
+def comparison(baseline: dict[str, Any], result: dict[str, Any], *, before: str = "before",
+               after: str = "after") -> str:
+    """Median |error| % of two scored runs side by side (``before -> after``), row by row."""
+    names = [m[0] for m in MEASURES]
+    old = {r["label"]: r for r in baseline["rows"]}
+    lines = [f"Median |error| % ({before} -> {after}); signed median of {after} in brackets:", "",
+             "| scans | n | " + " | ".join(names) + " |", "|---|---|" + "---|" * len(names)]
+    for row in result["rows"]:
+        prev = old.get(row["label"])
+        if prev is None:
+            continue
+        cells = []
+        for m in names:
+            a, b = prev["cells"].get(m), row["cells"].get(m)
+            if not a or not b or not a.get("n") or not b.get("n"):
+                cells.append("")
+                continue
+            cells.append(f"{a['median_abs_pct']:.1f} -> {b['median_abs_pct']:.1f} "
+                         f"({b['median_pct']:+.1f})")
+        lines.append(f"| {row['label']} | {row['n']} | " + " | ".join(cells) + " |")
+    return "\n".join(lines)
+
+
 def targets(result: dict[str, Any]) -> list[str]:
     """PASS / MISS against the issue's targets (rows that were scored)."""
     rows = {r["label"]: r["cells"] for r in result["rows"]}
@@ -396,6 +454,11 @@ def main(argv: Sequence[str] | None = None) -> int:
                         help="do not run `specproc fit --te1-ms` on the scans whose TE1 the "
                              "manifest gives")
     parser.add_argument("--json", type=Path, default=None, help="also write the scores here")
+    parser.add_argument("--mm-spectra", type=Path, default=None, metavar="DIR",
+                        help="fit each tissue scan with the measured macromolecule spectrum of "
+                             "its field and TE from DIR (generate.py's mm/ folder)")
+    parser.add_argument("--baseline", type=Path, default=None, metavar="RUNDIR",
+                        help="also print this run's median |error| beside that of RUNDIR")
     args = parser.parse_args(argv)
     corpus: Path = args.corpus
     if not (corpus / "manifest.tsv").exists():
@@ -405,6 +468,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         manifest = subset_manifest(corpus, args.subset)
     run_dir = args.output or corpus / ("run" if args.subset is None else
                                        f"run-subset-{args.subset}")
+    if args.mm_spectra is not None:
+        manifest = mm_manifest(corpus, manifest, args.mm_spectra, run_dir)
     cost = None
     fit_cost = None
     if not args.score_only:
@@ -423,6 +488,10 @@ def main(argv: Sequence[str] | None = None) -> int:
              f"{fit_cost['wall_s']:.0f} s wall, {fit_cost['cpu_s']:.0f} s CPU" if fit_cost else ""))
     print()
     print(markdown(result))
+    if args.baseline is not None:
+        print()
+        print(comparison(score(corpus, args.baseline), result, before=args.baseline.name,
+                         after=run_dir.name))
     if args.json:
         args.json.write_text(json.dumps(result, indent=1) + "\n")
     return 0
