@@ -361,6 +361,32 @@ def run_fit(case: NiftiCase, work: Path, basis: Path) -> str:
         path.unlink()
 
 
+def run_fit_mm(case: NiftiCase, work: Path) -> str:
+    """A plausible scan fitted with a hostile file as its measured macromolecule spectrum
+    (``specproc fit SCAN --mm-spectrum CASE``; a small simulated basis, cached in ``work``)."""
+    scan = work / "mm_scan.nii.gz"
+    if not scan.exists():
+        scan.write_bytes(nifti_bytes(NiftiCase()))
+    config = work / "mm_members.toml"
+    config.write_text('[fit]\nmembers = ["NAA", "Cr", "PCr", "GPC", "MMmeasured"]\n')
+    path = write_case(case, work)
+    out = work / "fit_mm_out"
+    before = os.environ.get("SPECPROC_CACHE_DIR")
+    os.environ["SPECPROC_CACHE_DIR"] = str(work.parent / "fuzz_cache")
+    try:
+        outcome = judge(["fit", scan, "--config", config, "--mm-spectrum", path, "-o", out],
+                        inputs=[scan, config, path], outputs=[out], work=work)
+        if outcome == "ok" and not sane_fit(out):
+            outcome = "insane"
+        return outcome
+    finally:
+        path.unlink()
+        if before is None:
+            os.environ.pop("SPECPROC_CACHE_DIR", None)
+        else:
+            os.environ["SPECPROC_CACHE_DIR"] = before
+
+
 def run_config(settings: dict[str, Any], work: Path) -> str:
     path = work / "settings.toml"
     path.write_text(toml_text(settings), "utf-8")

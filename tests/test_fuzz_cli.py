@@ -14,6 +14,7 @@ from _fuzz_cases import (
     config_strategy,
     run_config,
     run_fit,
+    run_fit_mm,
     run_info,
     run_preprocess,
     run_preprocess_with_config,
@@ -66,3 +67,9 @@ def test_preprocess_with_hostile_settings(work, settings_):
 @given(case=NIFTI_CASES)
 def test_fit_on_hostile_files(work, case):
     assert run_fit(case, work, work.parent / "fuzz_basis.npz") in ("ok", "clean_error")
+
+
+@_settings(10)
+@given(case=NIFTI_CASES)
+def test_fit_with_a_hostile_mm_spectrum(work, case):
+    assert run_fit_mm(case, work) in ("ok", "clean_error")
