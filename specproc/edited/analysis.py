@@ -18,9 +18,10 @@ ratios to tCr, water-referenced concentrations, QC). This module fits the DIFF s
   an **alpha-corrected** value for the GM/WM difference of GABA (Harris et al., J Magn Reson
   Imaging 2015;42:1431-1440, from memory: ``c / (f_GM + α f_WM)`` over the tissue part with
   α = 0.5, GABA taken twice as concentrated in GM as in WM).
-* edited QC: the fit error of the DIFF model (residual SD over 2.8-3.2 ppm relative to the
-  GABA+ peak height), the subtraction artefact at 3.2 ppm (choline residue in DIFF relative to
-  choline in OFF), the ON/OFF frequency and phase offset, and the pairs rejected.
+* edited QC: the fit error of the DIFF model (:func:`diff_fit_error`: residual SD over
+  2.79-3.55 ppm relative to the GABA+ peak height, on 3 Hz line-broadened spectra), the
+  subtraction artefact at 3.2 ppm (choline residue in DIFF relative to choline in OFF), the
+  ON/OFF frequency and phase offset, and the pairs rejected.
 
 Editing efficiency is inside the simulated DIFF shapes (the shaped pulses of the scan are
 simulated), so no separate efficiency factor is applied.
@@ -44,9 +45,12 @@ from specproc.errors import InvalidInputError
 __all__ = [
     "ALPHA_GM_WM",
     "DIFF_RANGE_PPM",
+    "FIT_ERROR_LB_HZ",
     "FIT_ERROR_LIMIT_PERCENT",
+    "FIT_ERROR_RANGE_PPM",
     "SUBTRACTION_LIMIT_PERCENT",
     "EditedResult",
+    "diff_fit_error",
     "edited_flag_keys",
     "edited_flag_sentence",
     "fit_difference",
@@ -59,9 +63,14 @@ __all__ = [
 DIFF_RANGE_PPM = (2.6, 4.2)
 #: Ratio of GABA concentration in WM to GM assumed by the alpha correction (Harris et al. 2015).
 ALPHA_GM_WM = 0.5
-#: Edited-QC rule of thumb: a fit error above this (per cent) marks the GABA+ value
-#: (common practice).
+#: Edited-QC rule of thumb: a fit error (:func:`diff_fit_error`) above this (per cent) marks the
+#: GABA+ value (common practice, from memory: GABA+ fit errors of good in-vivo data at 3 T are
+#: a few per cent, and studies leave out spectra above 10-20 %).
 FIT_ERROR_LIMIT_PERCENT = 15.0
+#: Range of the residual in the fit error and the line broadening of its spectra (the GABA+
+#: model's range and apodization of the common analysis tool; from memory).
+FIT_ERROR_RANGE_PPM = (2.79, 3.55)
+FIT_ERROR_LB_HZ = 3.0
 #: Edited-QC rule of thumb: choline left in DIFF above this share (per cent) of its OFF size
 #: marks a subtraction artefact (common practice).
 SUBTRACTION_LIMIT_PERCENT = 10.0
@@ -271,17 +280,53 @@ def _band(scan: Scan, lo: float, hi: float) -> np.ndarray:
     return np.real(scan.spectrum())[(ppm > lo) & (ppm < hi)]
 
 
+def _broadened(values: np.ndarray, fit: Any, scan: Scan, lb_hz: float) -> np.ndarray:
+    """Spectrum values on a fit's range after an exponential line broadening of ``lb_hz``.
+
+    The values (zero outside the fit range) go back to the time domain, are multiplied by
+    ``exp(-π lb t)`` and transformed again; the range's ends are smoothed too, which reaches
+    a few times ``lb_hz`` into the range.
+    """
+    n = scan.n_points
+    idx = np.searchsorted(-scan.ppm(), -np.asarray(fit.ppm))
+    full = np.zeros(n, dtype=complex)
+    full[np.clip(idx, 0, n - 1)] = values
+    fid = np.fft.ifft(np.fft.ifftshift(full)) * np.exp(-np.pi * lb_hz * scan.time_s())
+    return np.fft.fftshift(np.fft.fft(fid))[np.clip(idx, 0, n - 1)]
+
+
+def diff_fit_error(diff: Scan, diff_fit: Any) -> float:
+    """Fit error of the DIFF model, per cent, as GABA-edited studies report it.
+
+    ``100 · SD(residual over FIT_ERROR_RANGE_PPM) / height of the fitted GABA+ peak``, both on
+    spectra with the exponential line broadening :data:`FIT_ERROR_LB_HZ` (the measure the
+    edited-MRS literature reports as "fit error" — the standard deviation of the fit residual
+    over the GABA+ model's range relative to the model's peak amplitude, computed on spectra
+    line-broadened by 3 Hz as the common analysis tool does before its fit; Mullins et al.,
+    NeuroImage 2014;86:43-52; definition, range and apodization from memory). Without the
+    broadening, the residual SD of an unapodized spectrum of 1 s acquisition is about four times
+    larger at the same data, and a limit meant for the common measure flagged most scans of
+    typical quality (the edited benchmark: median 21 % against a 15 % limit).
+    The GABA+ peak is the sum of the GABA and co-edited macromolecule contributions (their
+    largest real value over 2.8-3.2 ppm); NaN when it is not positive or the range is missing.
+    """
+    names = list(diff_fit.names)
+    fppm = np.asarray(diff_fit.ppm)
+    lo, hi = FIT_ERROR_RANGE_PPM
+    band = (fppm > lo) & (fppm < hi)
+    peak_band = (fppm > 2.8) & (fppm < 3.2)
+    members = [names.index(m) for m in ("GABA", CO_EDITED_MM[0]) if m in names]
+    if not band.any() or not peak_band.any() or not members:
+        return float("nan")
+    model = np.sum(np.asarray(diff_fit.contributions)[members], axis=0)
+    peak = float(np.max(np.real(_broadened(model, diff_fit, diff, FIT_ERROR_LB_HZ))[peak_band]))
+    resid = np.real(_broadened(np.asarray(diff_fit.residual), diff_fit, diff, FIT_ERROR_LB_HZ))
+    return 100 * float(np.std(resid[band])) / peak if peak > 0 else float("nan")
+
+
 def edited_qc(spectra: EditedSpectra, diff_fit: Any) -> dict[str, float]:
     """Edited QC measures (see the module docstring)."""
-    fppm = np.asarray(diff_fit.ppm)
-    band = (fppm > 2.8) & (fppm < 3.2)
-    fit_error = float("nan")
-    if band.any():
-        # GABA+ peak of the fitted model without its baseline, residual SD over the same band
-        signal = np.real(np.asarray(diff_fit.fit) - np.asarray(diff_fit.baseline))[band]
-        peak = float(np.max(signal))
-        resid = float(np.std(np.real(np.asarray(diff_fit.residual))[band]))
-        fit_error = 100 * resid / peak if peak > 0 else float("nan")
+    fit_error = diff_fit_error(spectra.diff, diff_fit)
     cho_off = _band(spectra.off, 3.15, 3.26)
     cho_diff = _band(spectra.diff, 3.15, 3.26)
     artefact = (100 * float(np.sum(np.abs(cho_diff))) / float(np.sum(np.abs(cho_off)))
