@@ -159,6 +159,66 @@ def test_motion_corrupted_pair_is_rejected_as_a_pair(invented_scan):
     assert spectra.off_result.transient_report.kept.size == int(spectra.pairs_kept.sum())
 
 
+def test_specproc_preprocess_writes_on_off_and_diff(invented_scan, tmp_path):
+    # the standard's layout read by plain nibabel (time, then DIM_EDIT with EditCondition in
+    # its dim header; Clarke et al. 2022, from memory) and the validator (test_nifti_mrs_
+    # validator.py); the numbers are those of the library's preprocessing
+    scan, folder = invented_scan
+    out = tmp_path / "pre.nii.gz"
+    result = CliRunner().invoke(main, [
+        "preprocess", str(folder / "sub-e_svs.nii.gz"), "--water",
+        str(folder / "sub-e_mrsref.nii.gz"), "-o", str(out)], catch_exceptions=False)
+    assert result.exit_code == 0, result.output
+    for name in ("pre.nii.gz", "pre_diff.nii.gz", "pre_water.nii.gz", "pre_preprocess.png"):
+        assert (tmp_path / name).is_file(), name
+    img = nib.load(str(out))
+    meta = json.loads(img.header.extensions[0].get_content())
+    assert img.shape[3:] == (scan.scan.n_points, 2) and meta["dim_5"] == "DIM_EDIT"
+    assert meta["dim_5_header"]["EditCondition"] == ["ON", "OFF"]
+    assert meta["EditPulse"]["ON"]["PulseOffset"] == 1.9
+    tagged = {r["Details"].get("sub_spectrum") for r in meta["ProcessingApplied"]
+              if isinstance(r.get("Details"), dict)}
+    assert {"ON", "OFF"} <= tagged
+    last = meta["ProcessingApplied"][-1]["Details"]
+    assert scan.motion_pair in last["pairs_rejected"]
+    written, diff = load(out), load(tmp_path / "pre_diff.nii.gz")
+    spectra = preprocess_edited(scan.scan, water=scan.water)
+    np.testing.assert_allclose(written.data[0], spectra.on.data, rtol=1e-6, atol=1e-6 * np.max(
+        np.abs(spectra.off.data)))
+    np.testing.assert_allclose(written.data[1], spectra.off.data, rtol=1e-6, atol=1e-6 * np.max(
+        np.abs(spectra.off.data)))
+    assert diff.dims == () and diff.header["specproc_edited_spectrum"]["Value"] == "DIFF"
+    np.testing.assert_allclose(diff.data, written.data[0] - written.data[1], rtol=0,
+                               atol=1e-6 * np.max(np.abs(written.data)))
+    # an edit axis of unknown meaning: one line naming the file, nothing written
+    bad = tmp_path / "unknown.nii.gz"
+    save(_edited(np.ones((2, 4, 256), np.complex64), labels=None).replace(source=None), bad)
+    result = CliRunner().invoke(main, ["preprocess", str(bad), "-o", str(tmp_path / "b.nii.gz")])
+    lines = [line for line in result.output.splitlines() if line.strip()]
+    assert result.exit_code == 2 and len(lines) == 1 and "unknown.nii.gz" in lines[0]
+    assert not list(tmp_path.glob("b*"))
+
+
+@pytest.mark.slow
+def test_preprocessed_edited_file_fits_to_the_same_gaba_plus(invented_scan, tmp_path):
+    # specproc fit on the output of specproc preprocess gives the raw scan's GABA+/tCr
+    _scan, folder = invented_scan
+    runner = CliRunner()
+    pre = tmp_path / "pre.nii.gz"
+    assert runner.invoke(main, ["preprocess", str(folder / "sub-e_svs.nii.gz"), "--water",
+                                str(folder / "sub-e_mrsref.nii.gz"), "-o", str(pre)]
+                         ).exit_code == 0
+    values = []
+    for data, water, name in ((pre, tmp_path / "pre_water.nii.gz", "a"),
+                              (folder / "sub-e_svs.nii.gz", folder / "sub-e_mrsref.nii.gz", "b")):
+        result = runner.invoke(main, ["fit", str(data), "--water", str(water), "-o",
+                                      str(tmp_path / name)], catch_exceptions=False)
+        assert result.exit_code == 0, result.output
+        document = json.loads((tmp_path / name / "fit.json").read_text())
+        values.append(document["edited"]["values"]["GABA+/tCr"])
+    assert values[0] == pytest.approx(values[1], rel=0.01)
+
+
 @pytest.mark.slow
 def test_specproc_fit_on_an_edited_scan_reports_gaba_plus(invented_scan, tmp_path):
     scan, folder = invented_scan

@@ -5,7 +5,8 @@ standard's Python tools; only its validator is used). Files checked: the bundled
 every file of the demo study, the output of ``specproc preprocess`` (scan and water), each
 file of ``specproc basis export``, a Scan read from another format (npz) saved as
 NIfTI-MRS, and edited scans (``DIM_EDIT`` with ``EditCondition``, ``EditPulse``) written from
-the invented MEGA-PRESS generator and from DICOM. Issue 17, item 12: user keys must be
+the invented MEGA-PRESS generator and from DICOM, and ``specproc preprocess`` of one (ON/OFF on
+``DIM_EDIT``, and DIFF). Issue 17, item 12: user keys must be
 objects with a ``Description``.
 """
 
@@ -112,7 +113,14 @@ def test_edited_files_pass_the_validator(tmp_path):
     dicom = write_dicom_mrs(tmp_path / "mega.dcm", frames, sequence="MEGA-PRESS",
                             frame_labels=["ON", "OFF"] * 3)
     save(load(dicom).replace(source=None), tmp_path / "from_dicom.nii.gz")
-    for path in (tmp_path / "edited.nii.gz", tmp_path / "from_dicom.nii.gz"):
+    # specproc preprocess of an edited scan: ON/OFF on DIM_EDIT, and the DIFF spectrum
+    result = CliRunner().invoke(main, ["preprocess", str(tmp_path / "edited.nii.gz"), "-o",
+                                       str(tmp_path / "pre.nii.gz")])
+    assert result.exit_code == 0, result.output
+    for path in (tmp_path / "pre.nii.gz", tmp_path / "pre_diff.nii.gz"):
+        validate(path)
+    for path in (tmp_path / "edited.nii.gz", tmp_path / "from_dicom.nii.gz",
+                 tmp_path / "pre.nii.gz"):
         img = nib.load(str(path))
         assert "DIM_EDIT" in img.header.extensions[0].get_content().decode("utf-8")
         validate(path)

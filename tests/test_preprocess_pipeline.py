@@ -143,7 +143,7 @@ def test_unsupported_axes_are_rejected():
     scan, water, _, _ = make_scans(seed=5)
     edited = scan.replace(data=scan.data.reshape(N_COILS, 8, 2, N),
                           dims=("DIM_COIL", "DIM_DYN", "DIM_EDIT"))
-    with pytest.raises(InvalidInputError, match="edited data not supported yet"):
+    with pytest.raises(InvalidInputError, match="DIM_EDIT axis: the pipeline takes one"):
         run_pipeline(edited, water=water)
     user = scan.replace(data=scan.data.reshape(N_COILS, 8, 2, N),
                         dims=("DIM_COIL", "DIM_DYN", "DIM_USER_0"))

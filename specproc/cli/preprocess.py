@@ -9,6 +9,16 @@ scan and writes:
 * ``OUT_preprocess.png``: the transients before and after alignment, the frequency and phase
   drift over the transient index, and the final spectrum.
 
+A J-difference edited scan (a ``DIM_EDIT`` axis; :func:`specproc.edited.preprocess.
+preprocess_edited`) gives instead:
+
+* ``OUT.nii.gz``: the preprocessed ON and OFF sub-spectra on ``DIM_EDIT``, with the input's
+  ``EditCondition`` and ``EditPulse`` and the steps of each condition in ``ProcessingApplied``;
+* ``OUT_diff.nii.gz``: the DIFF spectrum ON − OFF (marked by the user key
+  ``specproc_edited_spectrum``);
+* ``OUT_water.nii.gz`` as above, and ``OUT_preprocess.png``: ON and OFF, DIFF, and the frequency
+  of each condition's transients over the pair index with the pairs left out.
+
 Every file is written to a temporary name and renamed when complete. Steps skipped (for example
 the alignment of a single transient) are listed on stderr.
 """
@@ -16,6 +26,7 @@ the alignment of a single transient) are listed on stderr.
 from __future__ import annotations
 
 from pathlib import Path
+from typing import Any
 
 import click
 
@@ -37,6 +48,7 @@ def output_paths(out: Path) -> dict[str, Path]:
     return {
         "scan": out,
         "water": out.with_name(f"{stem}_water{ext}"),
+        "diff": out.with_name(f"{stem}_diff{ext}"),
         "figure": out.with_name(f"{stem}_preprocess.png"),
     }
 
@@ -67,6 +79,11 @@ def preprocess(scan_file: Path, water_file: Path | None, config_file: Path | Non
     config = load_config(config_file)
     scan = load(scan_file)
     water = load(water_file) if water_file is not None else None
+    from specproc.edited.conditions import is_edited
+
+    if is_edited(scan):
+        _preprocess_edited(scan, water, config, scan_file, paths)
+        return
     with naming(scan_file):
         result = run_pipeline(scan, water=water, config=config)
         png = render_preprocess_figure(result, title=scan_file.name)  # before any write
@@ -83,6 +100,41 @@ def preprocess(scan_file: Path, water_file: Path | None, config_file: Path | Non
             else f", {int(report.kept.sum())}/{report.n_transients} transients kept")
     click.echo(f"wrote {paths['scan']}{kept}")
     if result.water is not None:
+        click.echo(f"wrote {paths['water']}")
+    click.echo(f"wrote {paths['figure']}")
+
+
+def _preprocess_edited(scan: Any, water: Any, config: Any, scan_file: Path,
+                       paths: dict[str, Path]) -> None:
+    """The edited branch of ``specproc preprocess`` (see the module docstring)."""
+    import contextlib
+
+    import numpy as np
+
+    from specproc._atomic import atomic_path
+    from specproc.edited.preprocess import difference_scan, preprocess_edited, stacked_subspectra
+    from specproc.errors import naming
+    from specproc.io import reader_notes, save
+    from specproc.report.edited import plot_edited_preprocessing
+    from specproc.report.figures import figure_png_bytes
+
+    with naming(scan_file):
+        spectra = preprocess_edited(scan, water=water, config=config)
+        stacked, diff = stacked_subspectra(spectra, scan), difference_scan(spectra)
+        png = figure_png_bytes(plot_edited_preprocessing(spectra, title=scan_file.name))
+    with contextlib.ExitStack() as stack:
+        save(stacked, stack.enter_context(atomic_path(paths["scan"])))
+        save(diff, stack.enter_context(atomic_path(paths["diff"])))
+        if spectra.water is not None:
+            save(spectra.water, stack.enter_context(atomic_path(paths["water"])))
+        stack.enter_context(atomic_path(paths["figure"])).write_bytes(png)
+    for note in [*reader_notes(scan), *spectra.notes]:
+        click.echo(f"specproc: note: {note}", err=True)
+    kept = int(np.count_nonzero(spectra.pairs_kept))
+    click.echo(f"wrote {paths['scan']} (ON and OFF, {kept}/{spectra.pairs_kept.size} "
+               "ON/OFF pairs kept)")
+    click.echo(f"wrote {paths['diff']}")
+    if spectra.water is not None:
         click.echo(f"wrote {paths['water']}")
     click.echo(f"wrote {paths['figure']}")
 

@@ -37,7 +37,11 @@ from specproc.preprocess.phase import phase_scan
 from specproc.preprocess.pipeline import PreprocessResult, run_pipeline, step_details
 from specproc.preprocess.reference import reference_scan
 
-__all__ = ["ALIGN_WINDOW_PPM", "EditedSpectra", "preprocess_edited", "split_conditions"]
+__all__ = ["ALIGN_WINDOW_PPM", "DIFF_KEY", "EditedSpectra", "difference_scan",
+           "preprocess_edited", "split_conditions", "stacked_subspectra"]
+
+#: NIfTI-MRS user key that marks a written difference spectrum.
+DIFF_KEY = "specproc_edited_spectrum"
 
 #: Region over which the ON/OFF offset is measured, ppm (the choline singlet).
 ALIGN_WINDOW_PPM = (3.12, 3.28)
@@ -216,3 +220,57 @@ def preprocess_edited(
                          on_to_off={"shift_hz": shift_hz, "phase_deg": phase_deg,
                                     "applied": float(applied)},
                          notes=tuple(notes), off_input=off_input, off_config=off_config)
+
+
+def _tagged(records: tuple[dict[str, Any], ...], label: str) -> list[dict[str, Any]]:
+    out = []
+    for record in records:
+        record = dict(record)
+        details = record.get("Details")
+        record["Details"] = ({**details, "sub_spectrum": label} if isinstance(details, dict)
+                             else {"text": details, "sub_spectrum": label})
+        out.append(record)
+    return out
+
+
+def stacked_subspectra(spectra: EditedSpectra, raw: Scan) -> Scan:
+    """The preprocessed ON and OFF sub-spectra on one ``DIM_EDIT`` axis, as the raw scan had them.
+
+    The indices, the ``DIM_EDIT`` dim header (``EditCondition``) and the header (``EditPulse``)
+    are those of ``raw``, so the file means what the input meant; the provenance is the raw
+    scan's records, then each condition's own steps (``Details.sub_spectrum`` = ``ON`` or
+    ``OFF``), then one record of the pairs kept and the ON/OFF offset.
+
+    Parameters
+    ----------
+    spectra : EditedSpectra
+        From :func:`preprocess_edited`.
+    raw : Scan
+        The edited scan that was preprocessed.
+    """
+    cond = spectra.conditions
+    data = np.zeros((2, spectra.off.n_points), dtype=complex)
+    data[cond.on_index] = np.asarray(spectra.on.data)
+    data[cond.off_index] = np.asarray(spectra.off.data)
+    common = len(raw.provenance)
+    records = (*raw.provenance, *_tagged(spectra.off.provenance[common:], "OFF"),
+               *_tagged(spectra.on.provenance[common:], "ON"))
+    headers = ({"DIM_EDIT": raw.dim_headers["DIM_EDIT"]} if "DIM_EDIT" in raw.dim_headers
+               else {})
+    stacked = spectra.off.replace(data=data, dims=("DIM_EDIT",), dim_headers=headers,
+                                  provenance=records)
+    return stacked.with_step("edited sub-spectra preprocessed", {
+        "pairs": int(spectra.pairs_kept.size),
+        "pairs_rejected": [int(i) for i in np.flatnonzero(~spectra.pairs_kept)],
+        "on_to_off": dict(spectra.on_to_off), "on_index": cond.on_index,
+        "off_index": cond.off_index})
+
+
+def difference_scan(spectra: EditedSpectra) -> Scan:
+    """The DIFF spectrum as a scan of its own, marked by the user key :data:`DIFF_KEY`."""
+    from specproc.data import user_key
+
+    header = dict(spectra.diff.header or {})
+    header[DIFF_KEY] = user_key("DIFF", "J-difference spectrum ON − OFF of an edited scan, "
+                                "preprocessed by specproc (not an acquired sub-spectrum)")
+    return spectra.diff.replace(header=header)

@@ -136,7 +136,8 @@ def _arrange_axes(scan: Scan, what: str) -> Scan:
     for tag in scan.dims:
         if tag == "DIM_EDIT":
             raise InvalidInputError(
-                f"the {what} have a DIM_EDIT axis: edited data not supported yet", scan.source
+                f"the {what} have a DIM_EDIT axis: the pipeline takes one sub-spectrum "
+                "(edited data: specproc.edited.preprocess.preprocess_edited)", scan.source
             )
         if tag not in _SUPPORTED_AXES:
             raise InvalidInputError(
@@ -332,7 +333,7 @@ def run_pipeline(
     ------
     InvalidInputError
         For all-zero data, a mismatched water reference, unsupported axes (``DIM_EDIT``:
-        "edited data not supported yet") or a bad configuration value.
+        one sub-spectrum at a time) or a bad configuration value.
     """
     cfg_all = merge_config(config, source="configuration")
     cfg = cfg_all["preprocess"]

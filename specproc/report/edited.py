@@ -1,11 +1,15 @@
 """Rendering of the edited part of a scan's result: table rows, the report's section and the
-ON/OFF/DIFF figure.
+ON/OFF/DIFF figures.
 
-The figure has three panels on one ppm axis (decreasing to the right): the OFF and the ON
-spectra overlaid (ON labelled aligned when the alignment was applied); the DIFF spectrum with
-its fit (GABA+ and Glx); and the DIFF residual. The "Edited spectroscopy" section of the scan
-report (:func:`edited_section`) gives GABA+/tCr and the mM values with their bounds, the edited
-QC with its limits, the pairs rejected and the notes (offsets assumed, alignment not applied).
+The analysis figure (:func:`plot_edited`) has three panels on one ppm axis (decreasing to the
+right): the OFF and the ON spectra overlaid (ON labelled aligned when the alignment was
+applied); the DIFF spectrum with its fit (GABA+ and Glx); and the DIFF residual. The "Edited
+spectroscopy" section of the scan report (:func:`edited_section`) gives GABA+/tCr and the mM
+values with their bounds, the edited QC with its limits, the pairs rejected and the notes
+(offsets assumed, alignment not applied). The preprocessing figure
+(:func:`plot_edited_preprocessing`, ``specproc preprocess``) has the same ON/OFF panel, the
+DIFF spectrum, and the frequency of each ON and OFF transient over the pair index with the
+pairs left out marked.
 """
 
 from __future__ import annotations
@@ -18,7 +22,7 @@ import numpy as np
 from specproc.report import palette
 
 __all__ = ["EDITED_QC_FIELDS", "edited_members", "edited_rows", "edited_section",
-           "plot_edited"]
+           "plot_edited", "plot_edited_preprocessing"]
 
 #: Edited QC measures of the tables (keys of ``EditedResult.qc``), in this order.
 EDITED_QC_FIELDS: tuple[str, ...] = (
@@ -169,16 +173,7 @@ def plot_edited(edited: Any, *, title: str = "") -> Any:
     fig = Figure(figsize=(8.0, 6.4))
     axes = [fig.add_axes((0.08, 0.56, 0.88, 0.36)), fig.add_axes((0.08, 0.22, 0.88, 0.30)),
             fig.add_axes((0.08, 0.08, 0.88, 0.12))]
-    ppm = spectra.off.ppm()
-    keep = (ppm > 0.5) & (ppm < 4.3)
-    off = np.real(spectra.off.spectrum())[keep]
-    on = np.real(spectra.on.spectrum())[keep]
-    axes[0].plot(ppm[keep], off, color=palette.DATA, lw=1.6, label="OFF")
-    aligned = bool(spectra.on_to_off.get("applied", 0.0))
-    axes[0].plot(ppm[keep], on, color=palette.FIT, lw=0.7,
-                 label="ON (aligned)" if aligned else "ON")
-    axes[0].legend(loc="upper left", frameon=False, fontsize=8)
-    axes[0].set_title(title, fontsize=10, loc="left")
+    _plot_on_off(axes[0], spectra, title)
     fit = edited.diff_fit
     fppm = np.asarray(fit.ppm)
     axes[1].plot(fppm, np.real(fit.data), color=palette.DATA, lw=1.6, label="DIFF")
@@ -190,14 +185,74 @@ def plot_edited(edited: Any, *, title: str = "") -> Any:
     axes[1].legend(loc="upper left", frameon=False, fontsize=7, ncol=4)
     axes[2].plot(fppm, np.real(fit.residual), color=palette.RESIDUAL, lw=0.7)
     axes[2].set_xlabel("chemical shift (ppm)")
+    _tidy(axes)
+    gp = edited.values.get("GABA+/tCr", float("nan"))
+    axes[1].text(0.99, 0.92, f"GABA+/tCr {gp:.3g}", transform=axes[1].transAxes, ha="right",
+                 fontsize=9)
+    return fig
+
+
+def _plot_on_off(ax: Any, spectra: Any, title: str) -> None:
+    """The OFF and ON spectra overlaid, 0.5-4.3 ppm."""
+    ppm = spectra.off.ppm()
+    keep = (ppm > 0.5) & (ppm < 4.3)
+    ax.plot(ppm[keep], np.real(spectra.off.spectrum())[keep], color=palette.DATA, lw=1.6,
+            label="OFF")
+    aligned = bool(spectra.on_to_off.get("applied", 0.0))
+    ax.plot(ppm[keep], np.real(spectra.on.spectrum())[keep], color=palette.FIT, lw=0.7,
+            label="ON (aligned)" if aligned else "ON")
+    ax.legend(loc="upper left", frameon=False, fontsize=8)
+    ax.set_title(title, fontsize=10, loc="left")
+
+
+def _tidy(axes: list[Any]) -> None:
+    """One decreasing ppm axis without y ticks; labels on the lowest panel only."""
     for ax in axes:
         ax.set_xlim(4.3, 0.5)
         ax.set_yticks([])
         for side in ("top", "right", "left"):
             ax.spines[side].set_visible(False)
-    for ax in axes[:2]:
+    for ax in axes[:-1]:
         ax.tick_params(labelbottom=False)
-    gp = edited.values.get("GABA+/tCr", float("nan"))
-    axes[1].text(0.99, 0.92, f"GABA+/tCr {gp:.3g}", transform=axes[1].transAxes, ha="right",
-                 fontsize=9)
+
+
+def plot_edited_preprocessing(spectra: Any, *, title: str = "") -> Any:
+    """Figure of preprocessed edited spectra (matplotlib, Agg): ON and OFF, DIFF, and the
+    frequency of the transients of each condition over the pair index.
+
+    Parameters
+    ----------
+    spectra : EditedSpectra
+        From :func:`specproc.edited.preprocess.preprocess_edited`.
+    title : str, optional
+        Figure title.
+    """
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(8.0, 7.6))
+    axes = [fig.add_axes((0.08, 0.62, 0.88, 0.32)), fig.add_axes((0.08, 0.36, 0.88, 0.24))]
+    _plot_on_off(axes[0], spectra, title)
+    ppm = spectra.diff.ppm()
+    keep = (ppm > 0.5) & (ppm < 4.3)
+    axes[1].plot(ppm[keep], np.real(spectra.diff.spectrum())[keep], color=palette.DATA, lw=1.0,
+                 label="DIFF = ON − OFF")
+    axes[1].axhline(0.0, color=palette.RESIDUAL, lw=0.5)
+    axes[1].legend(loc="upper left", frameon=False, fontsize=8)
+    _tidy(axes)
+    axes[1].set_xlabel("chemical shift (ppm)")
+    drift = fig.add_axes((0.08, 0.07, 0.88, 0.2))
+    kept = np.flatnonzero(np.asarray(spectra.pairs_kept))
+    for name, result, colour in (("OFF", spectra.off_result, palette.DATA),
+                                 ("ON", spectra.on_result, palette.FIT)):
+        report = result.transient_report
+        if report is not None and np.asarray(report.shifts_hz).size == kept.size:
+            drift.plot(kept, np.asarray(report.shifts_hz), ".", ms=3, color=colour, label=name)
+    for k, index in enumerate(np.flatnonzero(~np.asarray(spectra.pairs_kept))):
+        drift.axvline(float(index), color=palette.RESIDUAL, lw=0.6, ls=":",
+                      label="pair left out" if k == 0 else None)
+    drift.set_xlabel("ON/OFF pair")
+    drift.set_ylabel("frequency (Hz)", fontsize=8)
+    drift.legend(loc="upper right", frameon=False, fontsize=7, ncol=3)
+    for side in ("top", "right"):
+        drift.spines[side].set_visible(False)
     return fig
