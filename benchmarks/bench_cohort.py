@@ -177,9 +177,9 @@ def stage_table(manifest: Path, n: int, modes: list[str]) -> dict[str, dict[str,
 def print_stage_table(table: dict[str, dict[str, float]], n: int) -> None:
     modes = list(table)
     print(f"\n1. CPU s per scan by stage ({n} scans, one process, BLAS 1 thread)")
-    print(f"{'stage':>14}" + "".join(f"{m:>12}" for m in modes))
+    print(f"{'stage':>17}" + "".join(f"{m:>12}" for m in modes))
     for stage in [*STAGES, "other", "total"]:
-        print(f"{stage:>14}" + "".join(f"{table[m][stage]:>12.3f}" for m in modes))
+        print(f"{stage:>17}" + "".join(f"{table[m][stage]:>12.3f}" for m in modes))
 
 
 # ---------------------------------------------------------------- physical reference
