@@ -60,11 +60,13 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 import generate as gen  # noqa: E402
 
-#: Measures of the tables: (label, cohort metabolite, kind) with kind "ratio" or "conc".
+#: Measures of the tables: (label, cohort metabolite, kind) with kind "ratio", "conc" (specproc's
+#: water-referenced mM) or "conc_gen" (the same fit and water signal quantified with the
+#: generator's constants, :func:`generator_constants_estimates`).
 MEASURES: tuple[tuple[str, str, str], ...] = (
     ("tNAA", "tNAA", "ratio"), ("tCho", "tCho", "ratio"), ("mI", "mI", "ratio"),
     ("Glu", "Glu", "ratio"), ("Glx", "Glx", "ratio"), ("Lac", "Lac", "ratio"),
-    ("tNAA mM", "tNAA", "conc"),
+    ("tNAA mM", "tNAA", "conc"), ("tNAA mM gen", "tNAA", "conc_gen"),
 )
 
 SNR_BANDS = ((20.0, 40.0), (40.0, 80.0), (80.0, 151.0))
@@ -77,7 +79,7 @@ ESTIMATE_KEYS = ("ratio_tcr", "ratio_tcr_sd", "ratio_tcr_total_sd", "conc_molar_
 def _rows(truths: Sequence[dict[str, Any]]) -> list[tuple[str, Callable[[dict[str, Any]], bool],
                                                           tuple[str, ...]]]:
     """Row label, scan predicate, measures shown."""
-    base = ("tNAA", "tCho", "mI", "Glu", "Glx", "tNAA mM")
+    base = ("tNAA", "tCho", "mI", "Glu", "Glx", "tNAA mM", "tNAA mM gen")
     rows: list[tuple[str, Callable[[dict[str, Any]], bool], tuple[str, ...]]] = []
     for lo, hi in SNR_BANDS:
         rows.append((f"3 T TE 30, SNR {lo:g}-{min(hi, 150):g}",
@@ -248,6 +250,81 @@ def read_fit_cli(out_root: Path) -> dict[str, dict[str, dict[str, float]]]:
     return est
 
 
+# ------------------------------------------------------------------ the generator's constants
+def generator_constants(field_t: float) -> dict[str, Any]:
+    """The water and relaxation constants of the generator at a field, in the form of
+    specproc's ``[water]`` and ``[relaxation]`` settings (the centres of its tables, without the
+    per-subject scatter: what a user who knows their study's values would give).
+
+    Returns
+    -------
+    dict
+        ``water`` (``content``, ``molar_mm``) and ``relaxation`` (``water``, ``metabolite``,
+        ``default`` tables of ``t1_s``/``t2_s``).
+    """
+    nf = gen._nominal_field(field_t)
+    source = "benchmarks/validation/generate.py"
+    metabolites = {
+        name: {"t1_s": gen.T1_S[nf].get(name, gen.T1_DEFAULT_S[nf]), "t2_s": t2, "source": source}
+        for name, t2 in gen.T2_S[nf].items()}
+    return {
+        "water": {"content": dict(gen.WATER_CONTENT), "molar_mm": gen.WATER_MM},
+        "relaxation": {
+            "water": {t: {"t1_s": gen.WATER_T1_S[nf][t], "t2_s": gen.WATER_T2_S[nf][t],
+                          "source": source} for t in ("gm", "wm", "csf")},
+            "metabolite": metabolites,
+            "default": {"t1_s": gen.T1_DEFAULT_S[nf], "t2_s": gen.T2_DEFAULT_S[nf],
+                        "source": source},
+        },
+    }
+
+
+def generator_constants_estimates(
+        run_dir: Path, truths: Sequence[dict[str, Any]]) -> dict[str, dict[str, dict[str, float]]]:
+    """tNAA in mM of every tissue scan of a run, quantified again with the generator's constants.
+
+    The fitted amplitudes, the measured water signal, the tissue fractions, TE and TR are those
+    of the scan's ``fit.json``; only the constants change: specproc's own
+    :func:`specproc.quantify.concentration_factors` (Gasparovic et al. 2006) with the water
+    contents, water molarity and relaxation times of :func:`generator_constants`. The
+    difference to specproc's reported mM is the part of its error that comes from the two sets
+    of published constants; what is left comes from the fit and the water signal (and the
+    generator's per-subject scatter of T1 and T2). The SD is the reported one scaled by the
+    same factor.
+    """
+    from specproc.quantify import Relaxation, concentration_factors, load_relaxation_times
+
+    out: dict[str, dict[str, dict[str, float]]] = {}
+    for t in truths:
+        path = run_dir / "scans" / t["scan_id"] / "fit.json"
+        if not t.get("conc_molar_mm") or not path.is_file():
+            continue
+        quant = json.loads(path.read_text()).get("quantification") or {}
+        if not quant.get("water_referenced") or "tNAA" not in (quant.get("conc_molar_mm") or {}):
+            continue
+        const = quant["constants"]
+        members = list(quant["combinations"]["tNAA"])
+        c = generator_constants(t["spec"]["field_t"])
+        relax = load_relaxation_times(const["field_t"], overrides=c["relaxation"])
+        k_molar, _, _ = concentration_factors(
+            members, water_amplitude=const["water_amplitude"],
+            volume_fractions=const["volume_fractions"], te_s=const["te_s"], tr_s=const["tr_s"],
+            metabolite_relaxation={m: relax.metabolite(m) for m in members},
+            water_relaxation={k: Relaxation(v.t1_s, v.t2_s) for k, v in relax.water.items()},
+            proton_normalised=bool(const["metabolite_proton_normalised"]),
+            protons=const.get("protons"),
+            water_proton_normalised=bool(const["water_proton_normalised"]),
+            water_te_s=const["water_te_s"], water_tr_s=const["water_tr_s"],
+            water_content=c["water"]["content"], water_molar_mm=c["water"]["molar_mm"])
+        value = sum(k_molar[m] * quant["amplitudes"][m] for m in members)
+        reported = quant["conc_molar_mm"]["tNAA"]
+        sd = quant["conc_molar_sd_mm"]["tNAA"]
+        scale = value / reported if reported else math.nan
+        out[t["scan_id"]] = {"tNAA": {"conc_molar_mm": value,
+                                      "conc_molar_sd_mm": math.nan if sd is None else sd * scale}}
+    return out
+
+
 # ------------------------------------------------------------------ scoring
 def read_cohort(run_dir: Path) -> tuple[dict[str, dict[str, dict[str, float]]], dict[str, str]]:
     """Estimates by scan and metabolite, and the status of every scan."""
@@ -322,6 +399,8 @@ def score(corpus: Path, run_dir: Path) -> dict[str, Any]:
     est, status = read_cohort(run_dir)
     truths = [t for t in truths if t["scan_id"] in status]
     measures = {m[0]: m for m in MEASURES}
+    sources = {"ratio": est, "conc": est,
+               "conc_gen": generator_constants_estimates(run_dir, truths)}
     out: dict[str, Any] = {"rows": [], "n_scans": len(truths),
                            "n_failed": sum(1 for s in status.values() if s == "failed")}
     for label, pred, shown in _rows(truths):
@@ -329,7 +408,8 @@ def score(corpus: Path, run_dir: Path) -> dict[str, Any]:
         if not sel:
             continue
         failed = sum(1 for t in sel if status.get(t["scan_id"]) == "failed")
-        cells = {name: summarise(errors(sel, est, *measures[name])) for name in shown}
+        cells = {name: summarise(errors(sel, sources[measures[name][2]], *measures[name]))
+                 for name in shown}
         out["rows"].append({"label": label, "n": len(sel), "failed": failed, "cells": cells})
     fit_est = read_fit_cli(run_dir / "fit-cli")
     if fit_est:
