@@ -61,3 +61,36 @@ def test_ci_subset_ratio_bias(ci_run) -> None:
     assert abs(np.median(naa)) < 6.0, f"tNAA/tCr median error {np.median(naa):+.1f} %"
     assert abs(np.median(cho)) < 6.0, f"tCho/tCr median error {np.median(cho):+.1f} %"
     assert np.percentile(np.abs(naa), 90) < 12.0
+
+
+def test_requantification_with_the_generators_constants_returns_its_truth() -> None:
+    """The scorer's tNAA in mM with the generator's constants (score.requantified_tnaa) goes
+    back to the generator's concentration when the amplitudes are the generator's own signals:
+    metabolite ``c (1 - f_CSF) exp(-TE/T2)(1 - exp(-TR/T1))`` per molecule and water
+    ``2 [H2O] Σ f_t d_t exp(-TE/T2_t)(1 - exp(-TR/T1_t))`` (the generator's water model, built
+    here from its tables, not with specproc); with no constant switched it is specproc's own
+    reported value."""
+    gen = _module("generate")
+    score = _module("score")
+    from specproc.quantify import Acquisition, Tissue, WaterSignal, quantify
+
+    te, tr, field = 0.144, 2.5, 3.0
+    fractions = {"gm": 0.55, "wm": 0.35, "csf": 0.10}
+    conc = {"NAA": 10.0, "NAAG": 1.5, "Cr": 4.5, "PCr": 4.0}
+
+    def weight(t1: float, t2: float) -> float:
+        return float(np.exp(-te / t2) * (1.0 - np.exp(-tr / t1)))
+
+    amps = {m: c * (1 - fractions["csf"]) * weight(gen.T1_S[field][m], gen.T2_S[field][m])
+            for m, c in conc.items()}
+    s_w = 2 * gen.WATER_MM * sum(
+        f * gen.WATER_CONTENT[t] * weight(gen.WATER_T1_S[field][t], gen.WATER_T2_S[field][t])
+        for t, f in fractions.items())
+    q = quantify(amps, water=WaterSignal(s_w, 0.0, te, tr), tissue=Tissue(fractions),
+                 acquisition=Acquisition(te_s=te, tr_s=tr, field_t=field)).to_dict()
+    every = [p for p, _ in score.CONSTANT_PARTS]
+    assert score.requantified_tnaa(q, field, every) == pytest.approx(11.5, rel=1e-9)
+    assert score.requantified_tnaa(q, field, []) == pytest.approx(q["conc_molar_mm"]["tNAA"],
+                                                                  rel=1e-9)
+    # specproc's own constants give a higher value here (TE 144: its water T2 are longer)
+    assert q["conc_molar_mm"]["tNAA"] > 11.5 * 1.1

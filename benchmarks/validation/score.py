@@ -279,49 +279,115 @@ def generator_constants(field_t: float) -> dict[str, Any]:
     }
 
 
-def generator_constants_estimates(
-        run_dir: Path, truths: Sequence[dict[str, Any]]) -> dict[str, dict[str, dict[str, float]]]:
-    """tNAA in mM of every tissue scan of a run, quantified again with the generator's constants.
+#: The constants of the water-referenced concentration, in the order they are switched from
+#: specproc's to the generator's in the breakdown (:func:`constants_breakdown`).
+CONSTANT_PARTS: tuple[tuple[str, str], ...] = (
+    ("content", "water contents (specproc 0.837/0.691/1.0, generator 0.78/0.65/0.97)"),
+    ("molarity", "pure water (specproc 55.14 mol/L at 37 °C, generator 55.51)"),
+    ("water_relaxation", "water T1/T2 of GM, WM, CSF"),
+    ("metabolite_relaxation", "metabolite T1/T2"),
+)
+
+
+def requantified_tnaa(quant: dict[str, Any], field_t: float,
+                      parts: Sequence[str]) -> float:
+    """tNAA in mM of one scan's quantification (fit.json) with the generator's constants for
+    ``parts`` (names of :data:`CONSTANT_PARTS`) and specproc's own for the rest.
 
     The fitted amplitudes, the measured water signal, the tissue fractions, TE and TR are those
-    of the scan's ``fit.json``; only the constants change: specproc's own
-    :func:`specproc.quantify.concentration_factors` (Gasparovic et al. 2006) with the water
-    contents, water molarity and relaxation times of :func:`generator_constants`. The
-    difference to specproc's reported mM is the part of its error that comes from the two sets
-    of published constants; what is left comes from the fit and the water signal (and the
-    generator's per-subject scatter of T1 and T2). The SD is the reported one scaled by the
-    same factor.
+    of the scan; the formula is specproc's own :func:`specproc.quantify.concentration_factors`
+    (Gasparovic et al. 2006).
     """
     from specproc.quantify import Relaxation, concentration_factors, load_relaxation_times
 
+    const = quant["constants"]
+    members = list(quant["combinations"]["tNAA"])
+    c = generator_constants(field_t)
+    overrides: dict[str, Any] = {}
+    if "water_relaxation" in parts:
+        overrides["water"] = c["relaxation"]["water"]
+    if "metabolite_relaxation" in parts:
+        overrides["metabolite"] = c["relaxation"]["metabolite"]
+        overrides["default"] = c["relaxation"]["default"]
+    relax = load_relaxation_times(const["field_t"], overrides=overrides or None)
+    if "metabolite_relaxation" not in parts:  # exactly the times specproc used
+        metab = {m: Relaxation(const["metabolites"][m]["t1_s"], const["metabolites"][m]["t2_s"])
+                 for m in members}
+    else:
+        metab = {m: relax.metabolite(m) for m in members}
+    water = ({k: Relaxation(v.t1_s, v.t2_s) for k, v in relax.water.items()}
+             if "water_relaxation" in parts else
+             {k: Relaxation(v["t1_s"], v["t2_s"]) for k, v in const["water_relaxation"].items()})
+    k_molar, _, _ = concentration_factors(
+        members, water_amplitude=const["water_amplitude"],
+        volume_fractions=const["volume_fractions"], te_s=const["te_s"], tr_s=const["tr_s"],
+        metabolite_relaxation=metab, water_relaxation=water,
+        proton_normalised=bool(const["metabolite_proton_normalised"]),
+        protons=const.get("protons"),
+        water_proton_normalised=bool(const["water_proton_normalised"]),
+        water_te_s=const["water_te_s"], water_tr_s=const["water_tr_s"],
+        water_content=c["water"]["content"] if "content" in parts else const["water_content"],
+        water_molar_mm=(c["water"]["molar_mm"] if "molarity" in parts
+                        else const["water_molar_mm"]))
+    return float(sum(k_molar[m] * quant["amplitudes"][m] for m in members))
+
+
+def _water_referenced(run_dir: Path, t: dict[str, Any]) -> dict[str, Any] | None:
+    path = run_dir / "scans" / t["scan_id"] / "fit.json"
+    if not t.get("conc_molar_mm") or not path.is_file():
+        return None
+    quant = json.loads(path.read_text()).get("quantification") or {}
+    if not quant.get("water_referenced") or "tNAA" not in (quant.get("conc_molar_mm") or {}):
+        return None
+    return quant
+
+
+def generator_constants_estimates(
+        run_dir: Path, truths: Sequence[dict[str, Any]]) -> dict[str, dict[str, dict[str, float]]]:
+    """tNAA in mM of every tissue scan of a run, quantified again with all the generator's
+    constants (:func:`requantified_tnaa`).
+
+    The difference to specproc's reported mM is the part of its error that comes from the two
+    sets of published constants; what is left comes from the fit and the water signal (and the
+    generator's per-subject scatter of T1 and T2). The SD is the reported one scaled by the
+    same factor.
+    """
     out: dict[str, dict[str, dict[str, float]]] = {}
+    every = [p for p, _ in CONSTANT_PARTS]
     for t in truths:
-        path = run_dir / "scans" / t["scan_id"] / "fit.json"
-        if not t.get("conc_molar_mm") or not path.is_file():
+        quant = _water_referenced(run_dir, t)
+        if quant is None:
             continue
-        quant = json.loads(path.read_text()).get("quantification") or {}
-        if not quant.get("water_referenced") or "tNAA" not in (quant.get("conc_molar_mm") or {}):
-            continue
-        const = quant["constants"]
-        members = list(quant["combinations"]["tNAA"])
-        c = generator_constants(t["spec"]["field_t"])
-        relax = load_relaxation_times(const["field_t"], overrides=c["relaxation"])
-        k_molar, _, _ = concentration_factors(
-            members, water_amplitude=const["water_amplitude"],
-            volume_fractions=const["volume_fractions"], te_s=const["te_s"], tr_s=const["tr_s"],
-            metabolite_relaxation={m: relax.metabolite(m) for m in members},
-            water_relaxation={k: Relaxation(v.t1_s, v.t2_s) for k, v in relax.water.items()},
-            proton_normalised=bool(const["metabolite_proton_normalised"]),
-            protons=const.get("protons"),
-            water_proton_normalised=bool(const["water_proton_normalised"]),
-            water_te_s=const["water_te_s"], water_tr_s=const["water_tr_s"],
-            water_content=c["water"]["content"], water_molar_mm=c["water"]["molar_mm"])
-        value = sum(k_molar[m] * quant["amplitudes"][m] for m in members)
+        value = requantified_tnaa(quant, t["spec"]["field_t"], every)
         reported = quant["conc_molar_mm"]["tNAA"]
         sd = quant["conc_molar_sd_mm"]["tNAA"]
         scale = value / reported if reported else math.nan
         out[t["scan_id"]] = {"tNAA": {"conc_molar_mm": value,
                                       "conc_molar_sd_mm": math.nan if sd is None else sd * scale}}
+    return out
+
+
+def constants_breakdown(run_dir: Path,
+                        truths: Sequence[dict[str, Any]]) -> dict[str, dict[str, float]]:
+    """By how much (%) each constant of specproc raises its tNAA in mM over the generator's, per
+    scan: the constants are switched to the generator's one after the other in the order of
+    :data:`CONSTANT_PARTS`, and each step gives ``before / after - 1``; ``all`` is every
+    constant at once."""
+    out: dict[str, dict[str, float]] = {}
+    for t in truths:
+        quant = _water_referenced(run_dir, t)
+        if quant is None:
+            continue
+        done: list[str] = []
+        before = first = requantified_tnaa(quant, t["spec"]["field_t"], done)
+        row: dict[str, float] = {}
+        for part, _ in CONSTANT_PARTS:
+            done.append(part)
+            after = requantified_tnaa(quant, t["spec"]["field_t"], done)
+            row[part] = 100.0 * (before / after - 1.0)
+            before = after
+        row["all"] = 100.0 * (first / before - 1.0)
+        out[t["scan_id"]] = row
     return out
 
 
@@ -401,6 +467,7 @@ def score(corpus: Path, run_dir: Path) -> dict[str, Any]:
     measures = {m[0]: m for m in MEASURES}
     sources = {"ratio": est, "conc": est,
                "conc_gen": generator_constants_estimates(run_dir, truths)}
+    parts = constants_breakdown(run_dir, truths)
     out: dict[str, Any] = {"rows": [], "n_scans": len(truths),
                            "n_failed": sum(1 for s in status.values() if s == "failed")}
     for label, pred, shown in _rows(truths):
@@ -411,6 +478,12 @@ def score(corpus: Path, run_dir: Path) -> dict[str, Any]:
         cells = {name: summarise(errors(sel, sources[measures[name][2]], *measures[name]))
                  for name in shown}
         out["rows"].append({"label": label, "n": len(sel), "failed": failed, "cells": cells})
+        found = [parts[t["scan_id"]] for t in sel if t["scan_id"] in parts]
+        if found:
+            out.setdefault("constants", []).append({
+                "label": label, "n": len(found),
+                **{k: float(np.median([f[k] for f in found]))
+                   for k in [*(p for p, _ in CONSTANT_PARTS), "all"]}})
     fit_est = read_fit_cli(run_dir / "fit-cli")
     if fit_est:
         for label, source in (("TE1 given: specproc batch, manifest column", est),
@@ -456,6 +529,17 @@ def markdown(result: dict[str, Any]) -> str:
     for row in result["rows"]:
         lines.append(f"| {row['label']} | {row['n']} | "
                      + " | ".join(_cell(row["cells"].get(m), "bias") for m in names) + " |")
+    if result.get("constants"):
+        keys = [p for p, _ in CONSTANT_PARTS]
+        lines += ["", "Part of the water-referenced tNAA error that is the constants: median % by "
+                  "which specproc's constant raises tNAA mM over the generator's (switched one "
+                  "after the other; the column tNAA mM gen above has them all switched):", "",
+                  "| scans | n | " + " | ".join(keys) + " | all |",
+                  "|---|---|" + "---|" * (len(keys) + 1)]
+        for row in result["constants"]:
+            lines.append(f"| {row['label']} | {row['n']} | "
+                         + " | ".join(f"{row[k]:+.1f}" for k in [*keys, "all"]) + " |")
+        lines += ["", "; ".join(f"{p}: {text}" for p, text in CONSTANT_PARTS) + "."]
     lines += ["", "Targets of issue 10:", ""]
     lines += [f"- {t}" for t in targets(result)]
     return "\n".join(lines)
