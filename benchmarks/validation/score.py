@@ -289,10 +289,12 @@ CONSTANT_PARTS: tuple[tuple[str, str], ...] = (
 )
 
 
-def requantified_tnaa(quant: dict[str, Any], field_t: float,
-                      parts: Sequence[str]) -> float:
+def requantified_tnaa(quant: dict[str, Any], field_t: float, parts: Sequence[str],
+                      subject: dict[str, Any] | None = None) -> float:
     """tNAA in mM of one scan's quantification (fit.json) with the generator's constants for
-    ``parts`` (names of :data:`CONSTANT_PARTS`) and specproc's own for the rest.
+    ``parts`` (names of :data:`CONSTANT_PARTS`) and specproc's own for the rest; with
+    ``subject`` (the scan's truth record) the relaxation times are instead the subject's own
+    draws (water of each compartment, NAA and NAAG), which no user knows.
 
     The fitted amplitudes, the measured water signal, the tissue fractions, TE and TR are those
     of the scan; the formula is specproc's own :func:`specproc.quantify.concentration_factors`
@@ -318,6 +320,9 @@ def requantified_tnaa(quant: dict[str, Any], field_t: float,
     water = ({k: Relaxation(v.t1_s, v.t2_s) for k, v in relax.water.items()}
              if "water_relaxation" in parts else
              {k: Relaxation(v["t1_s"], v["t2_s"]) for k, v in const["water_relaxation"].items()})
+    if subject is not None:
+        water = {k: Relaxation(v["t1_s"], v["t2_s"]) for k, v in subject["water_model"].items()}
+        metab = {m: Relaxation(subject["t1_s"][m], subject["t2_s"][m]) for m in members}
     k_molar, _, _ = concentration_factors(
         members, water_amplitude=const["water_amplitude"],
         volume_fractions=const["volume_fractions"], te_s=const["te_s"], tr_s=const["tr_s"],
@@ -372,7 +377,8 @@ def constants_breakdown(run_dir: Path,
     """By how much (%) each constant of specproc raises its tNAA in mM over the generator's, per
     scan: the constants are switched to the generator's one after the other in the order of
     :data:`CONSTANT_PARTS`, and each step gives ``before / after - 1``; ``all`` is every
-    constant at once."""
+    constant at once; ``subject`` the step from the generator's table centres to the subject's
+    own relaxation times; ``left`` the error that then remains (the fit and the water signal)."""
     out: dict[str, dict[str, float]] = {}
     for t in truths:
         quant = _water_referenced(run_dir, t)
@@ -387,6 +393,9 @@ def constants_breakdown(run_dir: Path,
             row[part] = 100.0 * (before / after - 1.0)
             before = after
         row["all"] = 100.0 * (first / before - 1.0)
+        own = requantified_tnaa(quant, t["spec"]["field_t"], done, subject=t)
+        row["subject"] = 100.0 * (before / own - 1.0)
+        row["left"] = 100.0 * (own / t["conc_molar_mm"]["tNAA"] - 1.0)
         out[t["scan_id"]] = row
     return out
 
@@ -483,7 +492,7 @@ def score(corpus: Path, run_dir: Path) -> dict[str, Any]:
             out.setdefault("constants", []).append({
                 "label": label, "n": len(found),
                 **{k: float(np.median([f[k] for f in found]))
-                   for k in [*(p for p, _ in CONSTANT_PARTS), "all"]}})
+                   for k in [*(p for p, _ in CONSTANT_PARTS), "all", "subject", "left"]}})
     fit_est = read_fit_cli(run_dir / "fit-cli")
     if fit_est:
         for label, source in (("TE1 given: specproc batch, manifest column", est),
@@ -531,14 +540,16 @@ def markdown(result: dict[str, Any]) -> str:
                      + " | ".join(_cell(row["cells"].get(m), "bias") for m in names) + " |")
     if result.get("constants"):
         keys = [p for p, _ in CONSTANT_PARTS]
-        lines += ["", "Part of the water-referenced tNAA error that is the constants: median % by "
-                  "which specproc's constant raises tNAA mM over the generator's (switched one "
-                  "after the other; the column tNAA mM gen above has them all switched):", "",
-                  "| scans | n | " + " | ".join(keys) + " | all |",
-                  "|---|---|" + "---|" * (len(keys) + 1)]
+        lines += ["", "Where the water-referenced tNAA error comes from (median %): by how much "
+                  "each of specproc's constants raises tNAA mM over the generator's (switched "
+                  "one after the other; all: together, as in the column tNAA mM gen), the step "
+                  "from the generator's table to the subject's own relaxation times (subject), "
+                  "and the error left with those (left: the fit and the water signal):", "",
+                  "| scans | n | " + " | ".join(keys) + " | all | subject | left |",
+                  "|---|---|" + "---|" * (len(keys) + 3)]
         for row in result["constants"]:
-            lines.append(f"| {row['label']} | {row['n']} | "
-                         + " | ".join(f"{row[k]:+.1f}" for k in [*keys, "all"]) + " |")
+            lines.append(f"| {row['label']} | {row['n']} | " + " | ".join(
+                f"{row[k]:+.1f}" for k in [*keys, "all", "subject", "left"]) + " |")
         lines += ["", "; ".join(f"{p}: {text}" for p, text in CONSTANT_PARTS) + "."]
     lines += ["", "Targets of issue 10:", ""]
     lines += [f"- {t}" for t in targets(result)]
