@@ -15,32 +15,21 @@ from __future__ import annotations
 
 import csv
 import dataclasses
-import importlib.util
 import json
-import sys
 from pathlib import Path
 
 import pytest
+from _validation import validation_module
 from click.testing import CliRunner
 
 from specproc.cli import main
 
-VALIDATION = Path(__file__).resolve().parents[1] / "benchmarks" / "validation"
 MEASURES = ("tNAA", "tCho", "mI", "Glu", "Lac")
-
-
-def _generator():
-    spec = importlib.util.spec_from_file_location("generate", VALIDATION / "generate.py")
-    assert spec is not None and spec.loader is not None
-    module = importlib.util.module_from_spec(spec)
-    sys.modules["generate"] = module
-    spec.loader.exec_module(module)
-    return module
 
 
 @pytest.fixture(scope="module")
 def phantom_scan(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, Path, dict]:
-    gen = _generator()
+    gen = validation_module("generate")
     plan = {s.scan_id: s for s in gen.plan_corpus()}
     spec = dataclasses.replace(plan["phantom-003"], snr=1000.0)  # 3 T, TE 30, one coil
     assert spec.phantom and spec.field_t == 3.0 and spec.te_s == 0.030

@@ -70,8 +70,8 @@ def test_requantification_with_the_generators_constants_returns_its_truth() -> N
     ``2 [H2O] Σ f_t d_t exp(-TE/T2_t)(1 - exp(-TR/T1_t))`` (the generator's water model, built
     here from its tables, not with specproc); with no constant switched it is specproc's own
     reported value."""
-    gen = _module("generate")
-    score = _module("score")
+    gen = validation_module("generate")
+    score = validation_module("score")
     from specproc.quantify import Acquisition, Tissue, WaterSignal, quantify
 
     te, tr, field = 0.144, 2.5, 3.0
