@@ -21,6 +21,9 @@ Usage::
    ``conc_molar_total_sd_mm``), else the Cramér-Rao SD alone (``ratio_tcr_sd``,
    ``conc_molar_sd_mm``); an error counts as covered when ``|estimate - truth| <= 2 × SD``. The
    coverage of the Cramér-Rao SD alone is printed as a second table.
+   The water-referenced tNAA is also quantified again with the generator's own constants
+   (column ``tNAA mM gen``), and a further table states the part of its error that each
+   constant makes (:func:`constants_breakdown`).
 
 With ``--mm-spectra DIR`` (the folder ``mm/`` that ``generate.py`` writes beside the corpus;
 ``generate.py OUT --mm-only`` writes it alone) the run uses the "measured" macromolecule
@@ -354,9 +357,11 @@ def generator_constants_estimates(
 
     The difference to specproc's reported mM is the part of its error that comes from the two
     sets of published constants; what is left comes from the fit and the water signal (and the
-    generator's per-subject scatter of T1 and T2). The SD is the reported one scaled by the
-    same factor.
+    generator's per-subject scatter of T1 and T2). The SDs (Cramér-Rao, and the total with the
+    model uncertainty when the run reports it) are the reported ones scaled by the same factor.
     """
+    from specproc.quantify.sums import total_sd
+
     out: dict[str, dict[str, dict[str, float]]] = {}
     every = [p for p, _ in CONSTANT_PARTS]
     for t in truths:
@@ -366,9 +371,12 @@ def generator_constants_estimates(
         value = requantified_tnaa(quant, t["spec"]["field_t"], every)
         reported = quant["conc_molar_mm"]["tNAA"]
         sd = quant["conc_molar_sd_mm"]["tNAA"]
+        model = (quant.get("conc_molar_model_sd_mm") or {}).get("tNAA")
         scale = value / reported if reported else math.nan
-        out[t["scan_id"]] = {"tNAA": {"conc_molar_mm": value,
-                                      "conc_molar_sd_mm": math.nan if sd is None else sd * scale}}
+        out[t["scan_id"]] = {"tNAA": {
+            "conc_molar_mm": value,
+            "conc_molar_sd_mm": math.nan if sd is None else sd * scale,
+            "conc_molar_total_sd_mm": total_sd(sd, model) * scale}}
     return out
 
 
