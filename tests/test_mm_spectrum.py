@@ -313,3 +313,19 @@ def test_generator_mm_spectrum_passes_the_validator_and_fits_its_scans(tmp_path)
     p = resolve_protocol(plain_scan(spectrometer_mhz=record["spectrometer_mhz"]),
                          option={"mm_spectrum": str(path)})
     assert p.mm_model()["model"] == "measured"
+
+
+def test_batch_refuses_an_unreadable_configured_mm_spectrum_before_any_work(files, scan_file,
+                                                                            tmp_path):
+    root, _ = files
+    manifest = tmp_path / "manifest.tsv"
+    manifest.write_text(f"scan\n{scan_file[0]}\n")
+    config = tmp_path / "mm.toml"
+    config.write_text(f'[protocol]\nmm_spectrum = "{root / "mm_text.nii.gz"}"\n')
+    out = tmp_path / "run"
+    result = CliRunner().invoke(main, ["batch", str(manifest), "-o", str(out), "--config",
+                                       str(config), "--no-progress"])
+    assert result.exit_code == 2, result.output
+    lines = result.output.strip().splitlines()
+    assert len(lines) == 1 and "mm_text.nii.gz" in lines[0], result.output
+    assert not (out / "scans").exists()
