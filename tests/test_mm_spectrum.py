@@ -297,14 +297,10 @@ def test_batch_manifest_column_and_cohort_record(files, scan_file, tmp_path, mon
 def test_generator_mm_spectrum_passes_the_validator_and_fits_its_scans(tmp_path):
     """The validation generator's "measured" MM spectrum (its own NIfTI-MRS writer) passes the
     standard's validator and is accepted for a scan of its field and TE."""
-    import importlib
-    import sys
-    from pathlib import Path
-
+    from _validation import validation_module
     from test_nifti_mrs_validator import validate
 
-    sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "benchmarks" / "validation"))
-    gen = importlib.import_module("generate")
+    gen = validation_module("generate")
     specs = [s for s in gen.plan_corpus(preset="ci")][:2]
     (record,) = gen.write_measured_mm(tmp_path, specs)
     path = tmp_path / "mm" / record["file"]
