@@ -17,11 +17,17 @@ as the K leading eigenvectors of the Hermitian ``H Hᴴ`` by ARPACK's implicitly
 Lanczos/Arnoldi iteration (:func:`scipy.sparse.linalg.eigsh`; Lehoucq, Sorensen and Yang 1998)
 with the product ``H Hᴴ u`` done as two convolutions by FFT in O(n log n), never forming
 ``H``. The iteration runs to a relative residual of 1e-10 from a fixed start vector, so the
-result is deterministic and spans the same subspace as the full SVD to about 1e-9 even where
+result is deterministic and spans the same subspace as the full SVD to about 1e-8 even where
 the noise singular values beyond K lie close together (about 100 products for K = 25 at 1024
 points); the poles, which depend only on that subspace, agree accordingly. ``solver="full"``
 keeps the dense LAPACK SVD as the reference; small matrices, where it is as fast, and the rare
 ARPACK failure to converge use it too.
+
+The rest of the method costs little beside it: the shift-invariance equations are solved by
+their normal equations (the K columns of ``U_K`` are orthonormal, so that system is as well
+conditioned as the problem), and the Vandermonde matrix ``exp(t_n s_k)`` of the amplitudes and
+of the model is built from two short tables of exponentials, ``exp(t_(32a) s_k) exp(t_b s_k)``
+(two exponentials for every 32 points instead of one for each).
 
 References
 ----------
@@ -66,9 +72,15 @@ HLSVD_SOLVERS: tuple[str, ...] = ("lanczos", "full")
 #: it is as fast there and ARPACK needs a Krylov space well inside the matrix.
 _LANCZOS_MIN_ROWS = 96
 #: Relative residual at which ARPACK stops (0 would be machine precision: about 15 % more work
-#: for no change that matters; the components agree with the full SVD to about 1e-7 Hz and
+#: for no change that matters; the components agree with the full SVD to a few 1e-8 Hz and
 #: 1e-9 in relative amplitude either way, benchmarks/bench_preprocess.py).
 _LANCZOS_TOL = 1e-10
+#: Krylov vectors kept by ARPACK per wanted vector (its default is 2 K + 1): 1.7 K needs a few
+#: more restarts but less orthogonalization, about a tenth faster at K = 25, 1024 points, with
+#: the components still within a few 1e-8 of the full SVD (benchmarks/bench_preprocess.py).
+_LANCZOS_NCV_PER_VECTOR = 1.7
+#: Rows of the finer table of exponentials of :func:`_vandermonde`.
+_TABLE_STEP = 32
 
 
 @dataclass(frozen=True)
@@ -90,23 +102,38 @@ class DampedSinusoids:
     amplitude: np.ndarray
 
 
+def _vandermonde(rates: np.ndarray, *, n_points: int, dwell_s: float) -> np.ndarray:
+    """``exp(n · dwell_s · rates[k])`` for n < n_points, (n_points, K) complex.
+
+    Each entry is the product of two exponentials of a coarse and a fine table (rows ``32 a``
+    and ``b < 32``): about 2 √n K exponentials instead of n K, to within a few units of
+    round-off of the direct ones.
+    """
+    rates = np.asarray(rates, dtype=complex).ravel()
+    n, step = int(n_points), _TABLE_STEP
+    fine = np.exp(np.outer(np.arange(step) * float(dwell_s), rates))
+    coarse = np.exp(np.outer(np.arange(0, n, step) * float(dwell_s), rates))
+    return (coarse[:, None, :] * fine[None, :, :]).reshape(-1, rates.size)[:n]
+
+
 def damped_sinusoids_fid(
     components: DampedSinusoids, *, n_points: int, dwell_s: float
 ) -> np.ndarray:
     """Evaluate ``Σ_k a_k exp((2πi f_k - π lw_k) t)`` at t = n · dwell, n < n_points."""
-    t = np.arange(int(n_points)) * float(dwell_s)
-    poles = 2j * np.pi * np.asarray(components.freq_hz) - np.pi * np.asarray(components.lw_hz)
-    return np.exp(np.outer(t, poles)) @ np.asarray(components.amplitude, dtype=complex)
+    rates = 2j * np.pi * np.asarray(components.freq_hz) - np.pi * np.asarray(components.lw_hz)
+    return _vandermonde(rates, n_points=n_points, dwell_s=dwell_s) @ np.asarray(
+        components.amplitude, dtype=complex)
 
 
 class _HankelGram(scipy.sparse.linalg.LinearOperator):
     """``u -> H Hᴴ u`` for the rows × (n - rows + 1) Hankel matrix of ``x``, by FFT.
 
-    ``(H v)[i] = Σ_j x[i + j] v[j]`` is entry ``i + cols - 1`` of the convolution of ``x`` with
-    ``v`` reversed, and ``(Hᴴ u)[j]`` entry ``j + rows - 1`` of the convolution of ``conj(x)``
-    with ``u`` reversed. A circular convolution of length ≥ n has no wrap-around at those
-    entries, so one FFT length serves both. Four FFTs of about n points per product, against
-    the rows × cols multiply-adds of a dense one.
+    ``(Hᴴ u)[j] = Σ_i conj(x[i + j]) u[i]`` is entry ``n - 1 - j`` of the convolution of ``u``
+    with ``y = conj(x)`` reversed, so ``v = Hᴴ u`` reversed is the slice ``rows - 1 ...
+    n - 1`` of that convolution; ``(H v)[i] = Σ_j x[i + j] v[j]`` is entry ``i + cols - 1`` of
+    the convolution of ``x`` with ``v`` reversed. A circular convolution of length ≥ n has no
+    wrap-around at those entries, so one FFT length serves both: four FFTs of about n points
+    per product, against the rows × cols multiply-adds of a dense one.
     """
 
     def __init__(self, x: np.ndarray, rows: int) -> None:
@@ -114,14 +141,14 @@ class _HankelGram(scipy.sparse.linalg.LinearOperator):
         self._rows, self._cols = rows, x.size - rows + 1
         self._n_fft = scipy.fft.next_fast_len(x.size)
         self._spec_x = scipy.fft.fft(x, self._n_fft)
-        self._spec_conj = scipy.fft.fft(np.conj(x), self._n_fft)
+        self._spec_y = scipy.fft.fft(np.conj(x[::-1]), self._n_fft)
 
     def _matvec(self, u: np.ndarray) -> np.ndarray:
         rows, cols, n_fft = self._rows, self._cols, self._n_fft
         fft, ifft = scipy.fft.fft, scipy.fft.ifft
-        h_adj_u = ifft(self._spec_conj * fft(np.ravel(u)[::-1], n_fft), overwrite_x=True)
-        h_adj_u = h_adj_u[rows - 1 : rows - 1 + cols]
-        product = ifft(self._spec_x * fft(h_adj_u[::-1], n_fft), overwrite_x=True)
+        adjoint = ifft(self._spec_y * fft(np.ravel(u), n_fft), overwrite_x=True)
+        v_reversed = adjoint[rows - 1 : rows - 1 + cols]
+        product = ifft(self._spec_x * fft(v_reversed, n_fft), overwrite_x=True)
         return product[cols - 1 : cols - 1 + rows]
 
 
@@ -134,7 +161,8 @@ def _leading_left_vectors(x: np.ndarray, rows: int, order: int, solver: str) -> 
         start = np.full(rows, 1.0 / np.sqrt(rows), dtype=complex)  # fixed: reproducible
         try:
             values, vectors = scipy.sparse.linalg.eigsh(
-                _HankelGram(x, rows), k=order, which="LM", v0=start, tol=_LANCZOS_TOL
+                _HankelGram(x, rows), k=order, which="LM", v0=start, tol=_LANCZOS_TOL,
+                ncv=min(rows, int(_LANCZOS_NCV_PER_VECTOR * order)),
             )
         except (scipy.sparse.linalg.ArpackNoConvergence, scipy.sparse.linalg.ArpackError):
             pass  # fall back to the dense SVD below
@@ -197,13 +225,17 @@ def hlsvd(
     scale = float(np.max(np.maximum(np.abs(x.real[:n]), np.abs(x.imag[:n]))))
     x = x / scale
     uk = _leading_left_vectors(x[:n], rows, order, solver)
-    z_matrix, *_ = np.linalg.lstsq(uk[:-1], uk[1:], rcond=None)
+    # shift invariance U↓ Z = U↑ in least squares, by the normal equations: U↓ is U_K less one
+    # row, its Gram matrix within that row's norm of the identity (well conditioned)
+    lower, upper = uk[:-1], uk[1:]
+    lower_adj = lower.conj().T
+    z_matrix = np.linalg.solve(lower_adj @ lower, lower_adj @ upper)
     poles = np.linalg.eigvals(z_matrix)
     poles = poles[np.abs(poles) > 0]
     log_poles = np.log(poles) / dwell_s
     freq_hz = np.imag(log_poles) / (2 * np.pi)
     lw_hz = -np.real(log_poles) / np.pi
-    basis = np.exp(np.outer(np.arange(n) * dwell_s, log_poles))
+    basis = _vandermonde(log_poles, n_points=n, dwell_s=dwell_s)
     amplitude, *_ = np.linalg.lstsq(basis, x[:n], rcond=None)
     order_idx = np.argsort(freq_hz)
     return DampedSinusoids(freq_hz[order_idx], lw_hz[order_idx], amplitude[order_idx] * scale)
