@@ -43,6 +43,9 @@ def test_model_builder_matches_the_formula():
     direct = sum(a * np.exp(2j * np.pi * f * T - np.pi * lw * T) for f, lw, a in
                  zip(KNOWN.freq_hz, KNOWN.lw_hz, KNOWN.amplitude, strict=True))
     np.testing.assert_allclose(fid, direct, atol=1e-12)
+    none = DampedSinusoids(np.zeros(0), np.zeros(0), np.zeros(0, complex))
+    assert np.array_equal(damped_sinusoids_fid(none, n_points=N, dwell_s=DWELL_S),
+                          np.zeros(N, complex))  # an empty sum
 
 
 @pytest.mark.parametrize("solver", ["lanczos", "full"])

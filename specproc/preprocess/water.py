@@ -111,6 +111,8 @@ def _vandermonde(rates: np.ndarray, *, n_points: int, dwell_s: float) -> np.ndar
     """
     rates = np.asarray(rates, dtype=complex).ravel()
     n, step = int(n_points), _TABLE_STEP
+    if rates.size == 0:  # no component (nothing in the water band, say)
+        return np.zeros((n, 0), dtype=complex)
     fine = np.exp(np.outer(np.arange(step) * float(dwell_s), rates))
     coarse = np.exp(np.outer(np.arange(0, n, step) * float(dwell_s), rates))
     return (coarse[:, None, :] * fine[None, :, :]).reshape(-1, rates.size)[:n]
