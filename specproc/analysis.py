@@ -639,6 +639,11 @@ def analyse_scan(
     if used_basis is None:
         used_basis = used_protocol.simulate()
     notes.extend(input_notes(scan, water, used_basis, pre.water))
+    if used_protocol is not None and getattr(used_protocol, "mm_unused", None):
+        rule = used_protocol.macromolecule_source
+        notes.append(f"The macromolecule spectrum {used_protocol.mm_unused} was given but not "
+                     f"used: this protocol has no macromolecules ({rule}); choose them "
+                     "(--macromolecules) to fit it.")
     fit = fit_spectrum(pre.scan, used_basis, config=cfg)
     sensitivity = _model_sensitivity(pre.scan, used_basis, fit, cfg)
 

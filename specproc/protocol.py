@@ -229,6 +229,9 @@ class Protocol:
     mm_sources : mapping of str to str
         Where ``mm_spectrum`` and ``mm_keep_lipids`` came from (``"option"``, ``"manifest"``,
         ``"config"``); empty for the defaults.
+    mm_unused : str or None
+        The file name of a measured spectrum that was given but not used, because the
+        protocol has no macromolecules (TE rule, phantom, or ``macromolecules=False``).
     """
 
     sequence: str
@@ -249,6 +252,7 @@ class Protocol:
     mm_spectrum_sha256: str | None = None
     mm_keep_lipids: bool = False
     mm_sources: Mapping[str, str] = field(default_factory=dict)
+    mm_unused: str | None = None
 
     def _inputs(self) -> dict[str, Any]:
         return {**self._simulated(), **({} if self.mm_spectrum is None else {
@@ -280,7 +284,8 @@ class Protocol:
         ``"measured"``) and, for a measured spectrum, its file name (no folder), SHA-256,
         whether the lipids were kept and where each choice came from."""
         if not self.macromolecules:
-            return {"model": "none"}
+            return {"model": "none", **({"unused_file": self.mm_unused}
+                                        if self.mm_unused else {})}
         if self.mm_spectrum is None:
             return {"model": "parametrised"}
         return {"model": "measured", "file": Path(self.mm_spectrum).name,
@@ -291,7 +296,8 @@ class Protocol:
         """The macromolecule model in words (reports, the command line)."""
         model = self.mm_model()
         if model["model"] == "none":
-            return "none"
+            return "none" + (f" (the given spectrum {self.mm_unused} was not used)"
+                             if self.mm_unused else "")
         if model["model"] == "parametrised":
             return "parametrised components (macromolecules.toml)"
         lipids = "; lipid components kept" if self.mm_keep_lipids else ""
@@ -417,13 +423,15 @@ def _resolve_mm(layers: Mapping[str, Mapping[str, Any]], scan: Any, te_s: float 
         if not isinstance(value, bool):
             raise InvalidInputError(f"mm_keep_lipids must be true or false, got {value!r}")
         keep = value
-    if spectrum is None or not macromolecules:
+    if spectrum is None:
         return {}
     value, source = spectrum
     if not isinstance(value, str | os.PathLike):
         raise InvalidInputError(f"mm_spectrum must be a file name, got {value!r}")
     if str(value).strip().lower() == "none":
         return {}
+    if not macromolecules:  # said in the results: a spectrum given for nothing
+        return {"mm_unused": Path(value).name}
     from specproc.mmspectrum import check_mm_spectrum, load_mm_spectrum
 
     mm = load_mm_spectrum(value)

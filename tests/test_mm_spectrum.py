@@ -166,7 +166,8 @@ def test_mm_spectrum_precedence_option_manifest_config(tmp_path):
     assert p.mm_model() == {"model": "parametrised"}
     # a protocol without macromolecules (TE 144 by the rule) uses no MM spectrum at all
     long_te = resolve_protocol(plain_scan(te_s=0.144), config=cfg)
-    assert long_te.mm_model() == {"model": "none"}
+    assert long_te.mm_model() == {"model": "none", "unused_file": "c.nii.gz"}
+    assert long_te.key() == resolve_protocol(plain_scan(te_s=0.144)).key()
 
 
 def test_protocol_key_follows_the_file_content_not_its_name(tmp_path):
@@ -271,6 +272,22 @@ def test_bad_mm_files_give_one_line_and_exit_2(files, scan_file, tmp_path, name,
     assert len(lines) == 1 and lines[0].startswith("specproc: error: "), result.output
     assert name in lines[0] and message in lines[0], lines[0]
     assert not out.exists()
+
+
+def test_a_spectrum_given_for_a_protocol_without_macromolecules_is_said_unused(
+        files, scan_file, tmp_path, monkeypatch):
+    root, _ = files
+    monkeypatch.setenv("SPECPROC_CACHE_DIR", str(root / "cache"))
+    out = tmp_path / "out"
+    config = tmp_path / "metabolites.toml"
+    config.write_text("[fit]\nmembers = [" + ", ".join(f'"{m}"' for m in MEMBERS) + "]\n")
+    result = CliRunner().invoke(main, ["fit", str(scan_file[0]), "--config",
+                                       str(config), "--no-macromolecules",
+                                       "--mm-spectrum", str(root / "mm.nii.gz"), "-o", str(out)])
+    assert result.exit_code == 0, result.output
+    assert "macromolecule spectrum mm.nii.gz was given but not used" in result.output
+    doc = json.loads((out / "fit.json").read_text())
+    assert doc["basis"]["mm_model"] == {"model": "none", "unused_file": "mm.nii.gz"}
 
 
 def test_batch_manifest_column_and_cohort_record(files, scan_file, tmp_path, monkeypatch):
