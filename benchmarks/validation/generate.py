@@ -471,21 +471,22 @@ def _shape_fid(shape: dict[str, Any], scale_hz: float, t: np.ndarray) -> np.ndar
 
 
 def _fwhm_hz(fid: np.ndarray, dwell_s: float) -> float:
-    """Full width at half maximum of the absorption of a single line's FID, Hz."""
+    """Full width at half maximum of the absorption of a single line's FID, Hz.
+
+    Measured between the outermost points above half the maximum, so that a line split into
+    resolved sub-voxel components counts its whole width (walking out from the maximum only
+    measured its tallest part: 11 Hz for a 42 Hz line of two components).
+    """
     n = 1 << 16
     padded = np.zeros(n, dtype=np.complex128)
     m = min(fid.size, n)
     padded[:m] = fid[:m]
     padded[0] *= 0.5
     spec = np.fft.fftshift(np.fft.fft(padded)).real
-    k = int(np.argmax(spec))
-    half = spec[k] / 2
-    left = k
-    while left > 0 and spec[left] > half:
-        left -= 1
-    right = k
-    while right < n - 1 and spec[right] > half:
-        right += 1
+    above = np.flatnonzero(spec > spec.max() / 2)
+    # from the last point at or below half height on the left to the first on the right
+    left = max(int(above[0]) - 1, 0)
+    right = min(int(above[-1]) + 1, n - 1)
     return (right - left) / (n * dwell_s)
 
 
