@@ -34,6 +34,7 @@ import numpy as np
 from specproc.basis import BasisSet, simulate_basis
 from specproc.data import Scan
 from specproc.fit import fit_spectrum
+from specproc.fit.model import matches
 from specproc.fit.settings import settings_from_config
 from specproc.quantify import load_relaxation_times
 
@@ -48,8 +49,10 @@ CONC_MM = {
     "Ala": 0.5, "Asc": 1.0, "Asp": 2.0, "Cr": 4.5, "GABA": 1.2, "Glc": 1.0, "Gln": 3.0,
     "Glu": 9.0, "Gly": 0.6, "GPC": 1.2, "GSH": 1.5, "Lac": 0.6, "mI": 6.0, "NAA": 11.0,
     "NAAG": 1.4, "PCh": 0.5, "PCr": 4.0, "PE": 1.5, "sI": 0.3, "Tau": 1.5,
-    "MM0.94": 3.0, "MM1.22": 2.0, "MM1.43": 2.0, "MM1.70": 2.0, "MM2.05": 3.0, "MM2.29": 1.5,
-    "MM3.00": 1.5, "MM3.20": 1.0, "MM3.90": 3.0, "FatCH3": 0.5, "FatCH2": 0.5,
+    # the macromolecule components at one common level: the basis holds their expected
+    # relative sizes, the centre of the fit's amplitude prior (mm_amplitude_sd)
+    "MM0.94": 2.0, "MM1.22": 2.0, "MM1.43": 2.0, "MM1.70": 2.0, "MM2.05": 2.0, "MM2.29": 2.0,
+    "MM3.00": 2.0, "MM3.20": 2.0, "MM3.90": 2.0, "FatCH3": 0.5, "FatCH2": 0.5,
 }
 REPORT = ("NAA", "tCr", "tCho", "mI", "Glu")
 SUMS = {"tCr": ("Cr", "PCr"), "tCho": ("GPC", "PCh"), "tNAA": ("NAA", "NAAG")}
@@ -65,29 +68,37 @@ def model_fid(basis: BasisSet, conc: np.ndarray, t: np.ndarray,
     """The fit model itself, with its priors as the distribution of the per-member parameters.
 
     Each metabolite has its intrinsic width 1/(π T2) from the relaxation table at the field
-    (the centre of the fit's width prior) plus 3 Hz Lorentzian shared, the macromolecules 5 Hz
-    of their own; all a 4 Hz Gaussian, +1.5 Hz shift and 25° phase. With ``rng`` the
-    per-member deviations are drawn from the fit's priors (of ``config``) (metabolite widths N(0,
-    damping_sd_hz), macromolecule widths half-normal(separate_damping_sd_hz) instead of 5 Hz,
-    shifts N(0, shift_sd_hz) and N(0, mm_shift_sd_ppm)): a Bayesian bound is the error of data
-    whose parameters follow the prior.
+    (the centre of the fit's width prior) plus 3 Hz Lorentzian shared, which the macromolecules
+    share too (their own width is in the basis line); all a 4 Hz Gaussian, +1.5 Hz shift and
+    25° phase. With ``rng`` the per-member deviations are drawn from the fit's priors (of
+    ``config``) (widths N(0, damping_sd_hz), separately damped macromolecules
+    half-normal(separate_damping_sd_hz), shifts N(0, shift_sd_hz) and N(0, mm_shift_sd_ppm),
+    and the tied macromolecule amplitudes ``conc · (1 + mm_amplitude_sd · N(0, 1))``): a
+    Bayesian bound is the error of data whose parameters follow the prior.
     """
     defaults = settings_from_config(config)
     sigma = 4.0 * np.pi / (2 * np.sqrt(np.log(2)))
     mm = np.array([k == "macromolecule" for k in basis.kinds])
     relax = load_relaxation_times(FIELD_T)
     intrinsic = np.array([1.0 / relax.metabolite(n).t2_s for n in basis.names])
-    damp = np.where(mm, np.pi * 5.0, np.pi * 3.0 + intrinsic)
+    separate = np.array([matches(n, k, defaults.separate_damping)
+                         for n, k in zip(basis.names, basis.kinds, strict=True)], dtype=bool)
+    damp = np.where(separate, np.pi * 5.0, np.pi * 3.0 + np.where(mm, 0.0, intrinsic))
     shift = np.zeros(len(basis.names))
     if rng is not None:
         m = len(basis.names)
-        separate = mm & bool(defaults.separate_damping) & (defaults.separate_damping_sd_hz > 0)
-        damp = np.where(separate,
-                        np.pi * defaults.separate_damping_sd_hz * np.abs(rng.normal(size=m)),
-                        damp + np.where(mm, 0.0, np.pi * defaults.damping_sd_hz
+        sep_sd = defaults.separate_damping_sd_hz
+        damp = np.where(separate & (sep_sd > 0), np.pi * sep_sd * np.abs(rng.normal(size=m)),
+                        damp + np.where(separate, 0.0, np.pi * defaults.damping_sd_hz
                                         * rng.normal(size=m)))
+        damp = np.maximum(damp, 0.0)
         shift = np.where(mm, defaults.mm_shift_sd_ppm * basis.spectrometer_mhz,
                          defaults.shift_sd_hz) * rng.normal(size=m)
+        tied = np.array([matches(n, k, defaults.mm_amplitude_members)
+                         for n, k in zip(basis.names, basis.kinds, strict=True)], dtype=bool)
+        if defaults.mm_amplitude_sd > 0 and tied.sum() > 1:
+            draw = 1.0 + defaults.mm_amplitude_sd * rng.normal(size=m)
+            conc = np.where(tied, conc * np.maximum(draw, 0.0), conc)
     fids = basis.fids * np.exp(-np.outer(damp + 2j * np.pi * shift, t))
     return (conc @ fids) * np.exp(-2j * np.pi * 1.5 * t - (sigma * t) ** 2 + 1j * np.radians(25))
 

@@ -276,11 +276,11 @@ def _fwhm_hz_of(fid: np.ndarray, dwell_s: float, zero_fill: int = 16) -> float:
 def test_macromolecule_widths_kept_in_hz_above_3_tesla(field_t):
     # Outside reference: the FWHM of a Gaussian line exp(-(π F t)² / (4 ln 2)) is F (analytic;
     # the spectrum from numpy's FFT). The widths of macromolecules.toml are those at 3 T: the
-    # basis line of MM1.22 (0.12 ppm) is 0.12 ppm wide at 1.5 and 3 T and keeps its 3 T width
-    # in Hz at 7 T (a ppm width would make it 36 Hz there, broader than the signal; methods §3).
+    # basis line of MM1.22 (0.072 ppm) is that wide in ppm at 1.5 and 3 T and keeps its 3 T
+    # width in Hz at 7 T (a ppm width would make it 2.3 times broader there; methods §3).
     b = simulate_basis(sequence="press", field_t=field_t, te_s=0.030, metabolites=["Cr"],
                        macromolecules=True, dwell_s=1 / 4000, n_points=4096, centre_ppm=1.22,
                        cache=False)
     fwhm = _fwhm_hz_of(np.asarray(b.fids[b.index("MM1.22")]), b.dwell_s)
-    expected = 0.12 * larmor_mhz(min(field_t, 3.0))
+    expected = 0.072 * larmor_mhz(min(field_t, 3.0))
     assert fwhm == pytest.approx(expected, abs=0.1)

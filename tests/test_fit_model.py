@@ -73,7 +73,8 @@ def make_scan(basis, conc, *, shift_hz=1.5, lw_hz=4.0, gauss_s2=150.0, phase=0.4
     return Scan(fid, dwell_s=DWELL, spectrometer_mhz=MHZ, centre_ppm=CENTRE)
 
 
-NOISELESS = {"shift_sd_hz": 0.0, "noise_sd": 1e-3, "range_ppm": [0.5, 4.2]}
+# every member of the test data has the same Lorentzian width: the model with no width prior
+NOISELESS = {"shift_sd_hz": 0.0, "noise_sd": 1e-3, "range_ppm": [0.5, 4.2], "width_prior": "none"}
 
 
 def test_noiseless_spectrum_is_recovered():

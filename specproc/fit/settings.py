@@ -80,7 +80,8 @@ class FitSettings:
     baseline_penalty_range : (float, float)
         Smallest and largest weight considered by ``baseline_auto``.
     damping_groups, shift_groups : tuple of MemberGroup
-        Members sharing one Lorentzian damping / one frequency shift.
+        Members sharing one Lorentzian damping / one frequency shift (default: the
+        macromolecules share one damping, the metabolites another; one shift for all).
     separate_damping : tuple of str
         Members (patterns as in :class:`MemberGroup`) that get a Lorentzian damping of their
         own, bounded by 0 and ``max_lorentz_hz``, instead of their damping group's (e.g.
@@ -111,7 +112,9 @@ class FitSettings:
         ``macromolecules.toml``), and each deviation from the level has a prior SD of
         ``mm_amplitude_sd`` times the level (default: the ``MM*`` components, not the lipids).
     mm_amplitude_sd : float
-        That relative SD; 0 (default): the amplitudes are independent.
+        That relative SD (default 0.3: the relative sizes of the macromolecule peaks vary
+        between subjects and studies by some tens of per cent, common practice); 0: the
+        amplitudes are independent.
     shift_search_ppm : float
         Half-width of the coarse frequency search, ppm.
     shift_limit_ppm : float
@@ -150,7 +153,7 @@ class FitSettings:
     width_prior: str = "relaxation"
     mm_shift_sd_ppm: float = 0.01
     mm_amplitude_members: tuple[str, ...] = ("MM*",)
-    mm_amplitude_sd: float = 0.0
+    mm_amplitude_sd: float = 0.3
     shift_search_ppm: float = 0.15
     shift_limit_ppm: float = 0.25
     start_lorentz_hz: float = 3.0
