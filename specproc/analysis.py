@@ -65,6 +65,7 @@ __all__ = [
     "OUTPUT_MODES",
     "STATE_FILE",
     "WATER_DOMINANCE_MIN",
+    "WATER_DOMINANCE_WINDOW_PPM",
     "ScanResult",
     "analyse_scan",
     "input_notes",
@@ -423,6 +424,8 @@ _TE_TOLERANCE_S = 0.001
 #: tallest metabolite peak (common practice, from memory); below this ratio it is not a water
 #: reference (a suppressed scan, or a phantom of low water content).
 WATER_DOMINANCE_MIN = 20.0
+#: Shifts of the metabolite peaks (NAA to choline) that the water peak is compared with, ppm.
+WATER_DOMINANCE_WINDOW_PPM = (1.8, 3.4)
 
 
 def _ms_text(value_s: float) -> str:
@@ -491,14 +494,21 @@ def input_notes(scan: Any, water: Any, basis: Any, water_processed: Any = None) 
     fid = fid.reshape(-1, fid.shape[-1]).mean(axis=0) if fid.ndim > 1 else fid
     ppm = ppm_axis(fid.size, dwell_s=ref.dwell_s, spectrometer_mhz=ref.spectrometer_mhz,
                    centre_ppm=ref.reference_ppm)
-    magnitude = np.abs(to_spectrum(fid))
+    spectrum = to_spectrum(fid)
     in_water = (ppm > 4.65 - 0.5) & (ppm < 4.65 + 0.5)
-    in_metab = (ppm > 0.5) & (ppm < 4.0)
+    in_metab = (ppm > WATER_DOMINANCE_WINDOW_PPM[0]) & (ppm < WATER_DOMINANCE_WINDOW_PPM[1])
     if in_water.any() and in_metab.any():
-        ratio = float(magnitude[in_water].max()) / max(float(magnitude[in_metab].max()), 1e-300)
+        # Heights in the real part phased at the water peak: absorption tails fall as
+        # 1/offset², magnitude tails only as 1/offset, so a broad water line's magnitude tail
+        # would pass for a metabolite peak (at 1.5 T, 3.4 ppm is only 80 Hz from water).
+        peak = spectrum[in_water][np.argmax(np.abs(spectrum[in_water]))]
+        absorption = (spectrum * np.exp(-1j * np.angle(peak))).real
+        ratio = float(np.abs(peak)) / max(float(np.abs(absorption[in_metab]).max()), 1e-300)
         if ratio < WATER_DOMINANCE_MIN:
+            low, high = WATER_DOMINANCE_WINDOW_PPM
             notes.append(f"The water reference is not dominated by water (its water peak is "
-                         f"only {ratio:.3g} times its tallest peak between 0.5 and 4 ppm; "
+                         f"only {ratio:.3g} times its tallest peak between {low:g} and "
+                         f"{high:g} ppm; "
                          "usually hundreds of times): is it a suppressed scan, or a phantom "
                          "of low water content? Water-referenced values are not meaningful.")
     return notes
