@@ -262,6 +262,27 @@ def test_gaba_plus_of_a_noise_free_scan_with_exact_line_shapes():
     assert abs(result.edited.values["GABA+/tCr"] / scan.truth["GABA+/tCr"] - 1) < 0.03
 
 
+@pytest.mark.slow
+def test_macromolecules_under_creatine_at_te_68_are_fitted_in_off():
+    # independent generator (benchmarks/edited_scans.py) with its own macromolecule lines (short
+    # T2, its own positions and widths) but no sub-voxel field components, noise-free: at TE
+    # 68 ms about a quarter of their short-TE signal is left under creatine at 3.0 and 3.9 ppm.
+    # Without macromolecule members in the OFF basis the OFF fit's tCr was +4.0 to +5.8 % high on
+    # these three scans; with them +2.2 to +3.3 % (what is left: the mismatch of their shapes)
+    from specproc.analysis import analyse_scan
+
+    excess = []
+    for seed in (1000, 1001, 1002):
+        scan = make_edited_scan(seed, snr=1e5, drift=False, residual_water=False, motion=False,
+                                inhomogeneous=False, macromolecules=True)
+        result = analyse_scan(scan.scan, scan.water, tissue={"gm": 0.6, "wm": 0.3, "csf": 0.1})
+        per_mm = scan.truth["amplitude_per_mM"]
+        tcr = result.fit.combined["tCr"]["amplitude"] / (per_mm * scan.truth["tCr_weighted"])
+        excess.append(tcr - 1)
+        assert "macromolecule" in result.fit.kinds
+    assert max(excess) < 0.037, excess
+
+
 def test_member_signal_is_the_fit_model_of_a_member():
     # the residue's line shapes are the OFF fit's own: rebuilt from the fit's damping, shift,
     # Gaussian and phases, each member's contribution equals what the fitter returned

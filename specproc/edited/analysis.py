@@ -68,7 +68,8 @@ ALPHA_GM_WM = 0.5
 #: a few per cent, and studies leave out spectra above 10-20 %).
 FIT_ERROR_LIMIT_PERCENT = 15.0
 #: Range of the residual in the fit error and the line broadening of its spectra (the GABA+
-#: model's range and apodization of the common analysis tool; from memory).
+#: model's range and the apodization used for that measure in the edited-MRS literature;
+#: from memory).
 FIT_ERROR_RANGE_PPM = (2.79, 3.55)
 FIT_ERROR_LB_HZ = 3.0
 #: Edited-QC rule of thumb: choline left in DIFF above this share (per cent) of its OFF size
@@ -302,7 +303,7 @@ def diff_fit_error(diff: Scan, diff_fit: Any) -> float:
     spectra with the exponential line broadening :data:`FIT_ERROR_LB_HZ` (the measure the
     edited-MRS literature reports as "fit error" — the standard deviation of the fit residual
     over the GABA+ model's range relative to the model's peak amplitude, computed on spectra
-    line-broadened by 3 Hz as the common analysis tool does before its fit; Mullins et al.,
+    line-broadened by 3 Hz, as that literature does before the fit; Mullins et al.,
     NeuroImage 2014;86:43-52; definition, range and apodization from memory). Without the
     broadening, the residual SD of an unapodized spectrum of 1 s acquisition is about four times
     larger at the same data, and a limit meant for the common measure flagged most scans of
