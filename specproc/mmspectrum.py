@@ -229,19 +229,18 @@ def resample_mm_fid(
         m = min(n_in, n_out)
         out[:m] = fid[:m]
     else:
-        from specproc.preprocess.water import hlsvd
+        from specproc.preprocess.water import DampedSinusoids, damped_sinusoids_fid, hlsvd
 
         fit_points = min(n_in, _FIT_POINTS)
         order = max(1, min(int(model_order), fit_points // 2 - 2))
         comps = hlsvd(fid, dwell_s=effective_dwell, model_order=order,
                       fit_points=fit_points)
-        decaying = np.asarray(comps.lw_hz) > 0
-        poles = (2j * np.pi * np.asarray(comps.freq_hz) - np.pi * np.asarray(comps.lw_hz)
-                 )[decaying]
-        amps = np.asarray(comps.amplitude, dtype=complex)[decaying]
-        t_in = np.arange(n_in) * effective_dwell
-        remainder = fid - np.exp(np.outer(t_in, poles)) @ amps
-        out = (np.exp(np.outer(t, poles)) @ amps
+        keep = np.asarray(comps.lw_hz) > 0  # decaying components only
+        decaying = DampedSinusoids(freq_hz=np.asarray(comps.freq_hz)[keep],
+                                   lw_hz=np.asarray(comps.lw_hz)[keep],
+                                   amplitude=np.asarray(comps.amplitude, dtype=complex)[keep])
+        remainder = fid - damped_sinusoids_fid(decaying, n_points=n_in, dwell_s=effective_dwell)
+        out = (damped_sinusoids_fid(decaying, n_points=n_out, dwell_s=float(to_dwell_s))
                + _trig_interpolate(remainder[None, :], effective_dwell, t)[0])
     delta_hz = (float(centre_ppm) - float(to_centre_ppm)) * float(to_spectrometer_mhz)
     return out * np.exp(-2j * np.pi * delta_hz * t)

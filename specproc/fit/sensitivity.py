@@ -308,7 +308,6 @@ def model_sensitivity(scan: Any, basis: Any, fit: FitResult, *, config: Any = No
     kept: list[ModelVariant] = []
     rows: list[np.ndarray] = []
     skipped: list[str] = []
-    index = {n: i for i, n in enumerate(fit.names)}
     for variant in model_variants(fit, settings, opts):
         table = {**base, **variant.changes}
         cfg = {**whole, "fit": table} if whole is not None else table
@@ -321,11 +320,8 @@ def model_sensitivity(scan: Any, basis: Any, fit: FitResult, *, config: Any = No
                 fit.names):
             skipped.append(f"{variant.label}: the refit collapsed")
             continue
-        row = np.zeros(len(fit.names))
-        for n, a in zip(refit.names, refit.amplitudes, strict=True):
-            row[index[n]] = a
         kept.append(variant)
-        rows.append(row)
+        rows.append(np.asarray(refit.amplitudes, dtype=float))  # same members, same order
     amps = np.array(rows).reshape(len(rows), len(fit.names))
     return ModelSensitivity(names=tuple(fit.names), amplitudes=np.asarray(fit.amplitudes).copy(),
                             variants=tuple(kept), variant_amplitudes=amps,
