@@ -470,6 +470,6 @@ def simulate_macromolecule(
     peaks: tuple[GaussianPeak, ...] = component.peaks
     return LineList(
         np.array([(p.shift_ppm - centre_ppm) * spectrometer_mhz for p in peaks]),
-        np.array([p.protons * amplitude for p in peaks], dtype=complex),
+        np.array([p.basis_protons * amplitude for p in peaks], dtype=complex),
         np.array(component.fwhm_hz(spectrometer_mhz)),
     )

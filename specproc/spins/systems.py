@@ -179,14 +179,32 @@ class Metabolite:
         return out
 
 
+#: Weight of a tentative peak in the basis, relative to its ``protons``: the expectation of a
+#: size known only to lie between none and the full value (a uniform distribution; JCGM
+#: 100:2008 (GUM) 4.3.7). The model-uncertainty refits try it absent and at full size.
+TENTATIVE_WEIGHT = 0.5
+
+
 @dataclass(frozen=True)
 class GaussianPeak:
-    """One Gaussian line of a macromolecule/lipid component."""
+    """One Gaussian line of a macromolecule/lipid component.
+
+    ``tentative`` marks a peak whose presence is not established (e.g. "to be confirmed" in
+    the consensus table): the basis holds it at :data:`TENTATIVE_WEIGHT` of ``protons``
+    (:attr:`basis_protons`).
+    """
 
     shift_ppm: float
     fwhm_ppm: float
     protons: float
     provenance: Provenance | None = None
+    tentative: bool = False
+
+    @property
+    def basis_protons(self) -> float:
+        """Weight of the peak in the basis: ``protons``, times :data:`TENTATIVE_WEIGHT` for a
+        tentative peak."""
+        return self.protons * (TENTATIVE_WEIGHT if self.tentative else 1.0)
 
 
 @dataclass(frozen=True)
@@ -208,8 +226,9 @@ class Macromolecule:
 
     @property
     def protons(self) -> float:
-        """Sum of the relative proton weights of the peaks."""
-        return float(sum(p.protons for p in self.peaks))
+        """Sum of the relative proton weights of the peaks in the basis
+        (:attr:`GaussianPeak.basis_protons`)."""
+        return float(sum(p.basis_protons for p in self.peaks))
 
     def fwhm_hz(self, spectrometer_mhz: float) -> tuple[float, ...]:
         """Full width at half maximum of each peak at a spectrometer frequency, Hz.
@@ -427,6 +446,13 @@ def load_metabolites(
     return out
 
 
+def _flag(table: Any, key: str, path: Path, where: str) -> bool:
+    value = table.get(key, False)
+    if not isinstance(value, bool):
+        raise InvalidInputError(f"{where}: {key!r} must be true or false", path)
+    return value
+
+
 def load_macromolecules(folder: str | os.PathLike[str] | None = None) -> list[Macromolecule]:
     """Read the macromolecule/lipid components from ``macromolecules.toml``.
 
@@ -470,6 +496,7 @@ def load_macromolecules(folder: str | os.PathLike[str] | None = None) -> list[Ma
                 fwhm_ppm=_number(p, "fwhm_ppm", path, where),
                 protons=_number(p, "protons", path, where),
                 provenance=prov if own is None else parse_provenance(own, refs, where, path),
+                tentative=_flag(p, "tentative", path, where),
             )
             if peak.fwhm_ppm <= 0 or peak.protons <= 0:
                 raise InvalidInputError(f"{where}: 'fwhm_ppm' and 'protons' must be > 0", path)
