@@ -77,6 +77,8 @@ BOUNDS: dict[str, tuple[float, float, str]] = {
     "uncertainty.baseline_penalty_factor": (1.0, 1e4, "times"),
     "uncertainty.baseline_knot_factor": (1.0, 10.0, "times"),
     "uncertainty.mm_amplitude_sd": (0.0, 10.0, "of the level"),
+    "uncertainty.mm_width_factor": (1.0, 10.0, "times"),
+    "uncertainty.mm_shift_ppm": (0.0, 0.5, "ppm"),
     "uncertainty.width_sd_factor": (1.0, 100.0, "times"),
     "uncertainty.range_start_shift_ppm": (0.0, 5.0, "ppm"),
     "uncertainty.refit_evaluations": (1, 10_000, "evaluations"),

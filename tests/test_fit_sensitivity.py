@@ -32,6 +32,7 @@ from specproc.errors import InvalidInputError
 from specproc.fit import fit_spectrum
 from specproc.fit.sensitivity import (
     SensitivitySettings,
+    alternative_mm_basis,
     model_sensitivity,
     model_variants,
     sensitivity_settings,
@@ -225,3 +226,66 @@ def test_model_uncertainty_off_leaves_the_columns_empty(basis):
     assert off.sensitivity is None and off.to_dict()["model_uncertainty"] is None
     row = next(r for r in off.rows() if r["metabolite"] == "NAA")
     assert math.isnan(row["ratio_tcr_total_sd"]) and math.isnan(row["amplitude_model_sd"])
+
+
+# ------------------------------------------------------------------ macromolecule shapes
+def _mm_basis() -> BasisSet:
+    from specproc.basis import simulate_basis
+
+    return simulate_basis(sequence="press", field_t=3.0, te_s=0.030, metabolites="NAA,Cr",
+                          macromolecules=True, dwell_s=DWELL, n_points=T.size,
+                          centre_ppm=CENTRE, cache=False)
+
+
+def _gaussian_fid(shift_ppm: float, fwhm_hz: float, mhz: float) -> np.ndarray:
+    """Analytic FID of a Gaussian line: exp(-2πi ν t) exp(-(π fwhm t)² / (4 ln 2))."""
+    nu = (shift_ppm - CENTRE) * mhz
+    return np.exp(-2j * np.pi * nu * T - (np.pi * fwhm_hz * T) ** 2 / (4 * np.log(2)))
+
+
+def test_tentative_peak_is_half_weight_in_the_basis_and_varied_by_the_refits():
+    from specproc.spins.systems import TENTATIVE_WEIGHT, load_macromolecules
+
+    mm = {c.name: c for c in load_macromolecules()}["MM2.05"]
+    tentative = [p for p in mm.peaks if p.tentative]
+    # consensus table 1 (Cudalbu et al. 2021, checked): M1.9 "to be confirmed"
+    assert [p.shift_ppm for p in tentative] == [1.90]
+    assert TENTATIVE_WEIGHT == 0.5  # expectation of a uniform size in [0, full] (GUM 4.3.7)
+    full = sum(p.protons for p in mm.peaks)
+    assert mm.protons == pytest.approx(full - 0.5 * tentative[0].protons)
+    basis = _mm_basis()
+    scan = Scan(basis.fids[0] * np.exp(-np.pi * 6 * T), dwell_s=DWELL,
+                spectrometer_mhz=basis.spectrometer_mhz, centre_ppm=CENTRE)
+    fit = fit_spectrum(scan, basis,
+                       config={"fit": {"range_ppm": [0.5, 4.2]}})
+    variants = model_variants(fit, FitSettings(range_ppm=(0.5, 4.2)), SensitivitySettings(),
+                              basis)
+    scales = sorted(v.basis_changes["tentative_scale"] for v in variants
+                    if v.factor == "tentative macromolecule peaks")
+    assert scales == [0.0, 1.0]
+    assert {"macromolecule shapes", "tentative macromolecule peaks"} <= {v.factor for v in variants}
+    assert not any(v.basis_changes for v in model_variants(
+        fit, FitSettings(range_ppm=(0.5, 4.2)), SensitivitySettings(tentative=False,
+                                                                     mm_width_factor=1.0,
+                                                                     mm_shift_ppm=0.0), basis))
+
+
+def test_alternative_mm_basis_matches_analytic_gaussians():
+    basis = _mm_basis()
+    i = basis.index("MM2.05")
+    mhz = basis.spectrometer_mhz
+    # the consensus shape: 2.03 ppm, 0.10 ppm FWHM, 3 protons; the tentative 1.90 ppm line
+    # (0.072 ppm, 1 proton) at half weight; a singlet echo scales every line alike
+    scale = basis.fids[i][0] / (3.0 + 0.5)
+    expected = scale * (3.0 * _gaussian_fid(2.03, 0.10 * mhz, mhz)
+                        + 0.5 * _gaussian_fid(1.90, 0.072 * mhz, mhz))
+    np.testing.assert_allclose(basis.fids[i], expected, atol=1e-9 * abs(scale))
+    alt = alternative_mm_basis(basis, [i], width_factor=1.5, shift_ppm=0.03, tentative_scale=1.0)
+    expected = scale * (3.0 * _gaussian_fid(2.06, 0.15 * mhz, mhz)
+                        + 1.0 * _gaussian_fid(1.93, 0.108 * mhz, mhz))
+    np.testing.assert_allclose(alt.fids[i], expected, atol=1e-9 * abs(scale))
+    # other members untouched; absent tentative peak
+    np.testing.assert_array_equal(alt.fids[basis.index("NAA")], basis.fids[basis.index("NAA")])
+    gone = alternative_mm_basis(basis, [i], tentative_scale=0.0)
+    np.testing.assert_allclose(gone.fids[i], scale * 3.0 * _gaussian_fid(2.03, 0.10 * mhz, mhz),
+                               atol=1e-9 * abs(scale))

@@ -50,10 +50,6 @@ def test_ci_subset_is_what_it_claims(ci_run) -> None:
 
 
 @pytest.mark.slow
-@pytest.mark.xfail(strict=True, reason="macromolecule signals under NAA whose shape differs "
-                   "from the fit's components still bias tNAA/tCr (about +14 % here with the "
-                   "narrower, tied MM lines, +19 % before; without them the per-metabolite "
-                   "widths give 1-3 %); issue 10")
 def test_ci_subset_ratio_bias(ci_run) -> None:
     truths, run = ci_run
     naa = _relative_errors(truths, run, "tNAA")
