@@ -273,13 +273,15 @@ def alternative_mm_basis(basis: Any, members: Any, *, width_factor: float = 1.0,
 
 
 def model_variants(fit: FitResult, settings: FitSettings,
-                   options: SensitivitySettings, basis: Any = None) -> list[ModelVariant]:
+                   options: SensitivitySettings, basis: Any = None,
+                   tentative: Mapping[int, np.ndarray] | None = None) -> list[ModelVariant]:
     """The alternative model choices around the settings of a fit (see the module notes).
 
     A factor whose handle is off in the main fit (no baseline, no width prior, fewer than two
     tied-able macromolecules, no ``basis`` given or no parametrised macromolecule in it) has
     no variant; a penalty variant that would leave ``baseline_penalty_range`` is clipped to it
-    and dropped when it equals the main weight.
+    and dropped when it equals the main weight. ``tentative`` gives the tentative lines of the
+    basis members when the caller has them (default: read from the definitions).
     """
     out: list[ModelVariant] = []
     if settings.baseline:
@@ -309,7 +311,8 @@ def model_variants(fit: FitResult, settings: FitSettings,
                 "macromolecules",
                 f"macromolecule amplitudes tied (relative SD {options.mm_amplitude_sd:g})",
                 {"mm_amplitude_sd": options.mm_amplitude_sd}))
-    if basis is not None and _shape_members(basis, settings):
+    members = _shape_members(basis, settings) if basis is not None else []
+    if members:
         k = options.mm_width_factor
         if k > 1:
             out.append(ModelVariant("macromolecule shapes",
@@ -324,8 +327,8 @@ def model_variants(fit: FitResult, settings: FitSettings,
                 out.append(ModelVariant("macromolecule shapes",
                                         f"macromolecule components moved {sign * d:+g} ppm", {},
                                         {"shift_ppm": sign * d}))
-    if basis is not None and options.tentative and _tentative_lines(
-            basis, _shape_members(basis, settings)):
+    if members and options.tentative and (
+            tentative if tentative is not None else _tentative_lines(basis, members)):
         out.append(ModelVariant("tentative macromolecule peaks",
                                 "tentative macromolecule peaks left out", {},
                                 {"tentative_scale": 0.0}))
@@ -449,8 +452,10 @@ def model_sensitivity(scan: Any, basis: Any, fit: FitResult, *, config: Any = No
     rows: list[np.ndarray] = []
     skipped: list[str] = []
     shape_members = _shape_members(basis, settings)
-    tentative = _tentative_lines(basis, shape_members) if shape_members else {}
-    for variant in model_variants(fit, settings, opts, basis):
+    # the definitions file is read once per scan, for the variant list and the bases alike
+    tentative = _tentative_lines(basis, shape_members) if shape_members and opts.tentative \
+        else {}
+    for variant in model_variants(fit, settings, opts, basis, tentative):
         table = {**base, **variant.changes}
         if variant.basis_changes:
             table["fixed"] = list(FIXABLE)
