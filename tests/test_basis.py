@@ -273,14 +273,14 @@ def _fwhm_hz_of(fid: np.ndarray, dwell_s: float, zero_fill: int = 16) -> float:
 
 
 @pytest.mark.parametrize("field_t", [1.5, 3.0, 7.0])
-def test_macromolecule_widths_kept_in_hz_above_3_tesla(field_t):
+def test_macromolecule_widths_fixed_in_ppm_at_every_field(field_t):
     # Outside reference: the FWHM of a Gaussian line exp(-(π F t)² / (4 ln 2)) is F (analytic;
-    # the spectrum from numpy's FFT). The widths of macromolecules.toml are those at 3 T: the
-    # basis line of MM1.22 (0.072 ppm) is that wide in ppm at 1.5 and 3 T and keeps its 3 T
-    # width in Hz at 7 T (a ppm width would make it 2.3 times broader there; methods §3).
+    # the spectrum from numpy's FFT) and f0 = γ/2π · B0 (CODATA through larmor_mhz). The basis
+    # line of MM1.22 (0.072 ppm in macromolecules.toml) is that wide in ppm at 1.5, 3 and 7 T
+    # (no width_field_t in the bundled file; methods §3).
     b = simulate_basis(sequence="press", field_t=field_t, te_s=0.030, metabolites=["Cr"],
                        macromolecules=True, dwell_s=1 / 4000, n_points=4096, centre_ppm=1.22,
                        cache=False)
     fwhm = _fwhm_hz_of(np.asarray(b.fids[b.index("MM1.22")]), b.dwell_s)
-    expected = 0.072 * larmor_mhz(min(field_t, 3.0))
+    expected = 0.072 * larmor_mhz(field_t)
     assert fwhm == pytest.approx(expected, abs=0.1)

@@ -512,3 +512,21 @@ def test_missing_macromolecule_file(tmp_path: Path) -> None:
     with pytest.raises(InvalidInputError, match="cannot read") as info:
         load_macromolecules(tmp_path)
     assert info.value.path == str(tmp_path / "macromolecules.toml")
+
+
+def test_macromolecule_width_field_keeps_hz_above_it(tmp_path: Path) -> None:
+    # A user file may set width_field_t: above that field each line keeps the width in Hz it
+    # has there, at and below it the width in ppm (f0 from CODATA γ through larmor_mhz).
+    from specproc.constants import larmor_mhz
+
+    path = tmp_path / "macromolecules.toml"
+    path.write_text(
+        'width_field_t = 3.0\nwidth_field_provenance = { status = "common practice", at = "z" }\n'
+        + MM_ONE + "fwhm_ppm = 0.1\nprotons = 1\n" + MM_PROV
+    )
+    (comp,) = load_macromolecules(tmp_path)
+    assert comp.fwhm_hz(larmor_mhz(7.0)) == pytest.approx((0.1 * larmor_mhz(3.0),))
+    assert comp.fwhm_hz(larmor_mhz(1.5)) == pytest.approx((0.1 * larmor_mhz(1.5),))
+    (bundled,) = [c for c in load_macromolecules() if c.name == "MM1.22"]
+    assert bundled.width_field_t is None
+    assert bundled.fwhm_hz(larmor_mhz(7.0)) == pytest.approx((0.072 * larmor_mhz(7.0),))

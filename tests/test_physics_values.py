@@ -152,9 +152,9 @@ def test_provenance_block_counts_and_names_overrides() -> None:
     plain = physics_provenance(members, quantify(amps, tissue=fractions, **common).constants)
     assert plain["overridden"] == [] and plain["unknown_members"] == []
     assert plain["by_kind"]["water"] == {"checked": 5}  # 3 contents + 2 concentrations
-    # NAA 7 values + Cr 2 + PCr 2 + Glu 13 + MM0.94 7 (2 lines x position, width, weight, and
-    # the field of its widths)
-    assert sum(plain["by_kind"]["spin"].values()) == 7 + 2 + 2 + 13 + 7
+    # NAA 7 values + Cr 2 + PCr 2 + Glu 13 + MM0.94 6 (2 lines x position, width, weight; the
+    # bundled file sets no width_field_t)
+    assert sum(plain["by_kind"]["spin"].values()) == 7 + 2 + 2 + 13 + 6
     assert sum(plain["by_kind"]["relaxation"].values()) == 2 * 3 + 2 * len(members)
     assert plain["values"] == sum(plain["by_status"].values())
     changed = quantify(
