@@ -29,9 +29,14 @@ The NIfTI-MRS user key is ``"specproc_timings": {"Value": {"te1_s": ..., "tm_s":
 
 Macromolecules
 --------------
-Unless chosen explicitly, the macromolecule components are added when TE is below
-:data:`SHORT_TE_S` (common practice: macromolecule signals are visible at short TE and decay
-by TE ≈ 60 ms or so), and never for a phantom (:data:`PHANTOM_RULE`).
+Unless chosen explicitly, the macromolecule and lipid components are added to every tissue
+scan, at every TE, and never for a phantom (:data:`PHANTOM_RULE`). At short TE they are large
+(common practice). At long TE they are small but not gone: a macromolecule T2 of 20-40 ms
+(from memory) leaves a few per cent of the TE-30 signal at TE 144, and lipids relax more
+slowly; left out of the basis, that residual goes into the metabolites beside it (on the
+validation corpus at TE 144: mI/tCr −6.5 % and the lactate bounds too small, see
+benchmarks/validation/README.md). With non-negative amplitudes the components cost little where
+nothing is left (model choice, 2026-12-03; before it they were added only below TE 60 ms).
 
 Phantoms
 --------
@@ -74,7 +79,6 @@ __all__ = [
     "MM_MEMBER",
     "PHANTOM_RULE",
     "PHANTOM_WIDTH_RULE",
-    "SHORT_TE_S",
     "TIMINGS_HEADER_KEY",
     "TIMING_KEYS",
     "Protocol",
@@ -84,12 +88,8 @@ __all__ = [
     "simulated_members",
 ]
 
-#: Echo times below this include the macromolecule components in a simulated basis, s
-#: (common practice: macromolecules matter at short TE).
-SHORT_TE_S = 0.06
-
 #: The macromolecule rule in words (for reports and help texts).
-MACROMOLECULE_RULE = f"included when TE < {SHORT_TE_S * 1e3:g} ms (common practice)"
+MACROMOLECULE_RULE = "included in tissue at every TE (model choice; see specproc.protocol)"
 
 #: The rule for a phantom (a solution holds no macromolecules).
 PHANTOM_RULE = "none in a phantom (a solution holds no macromolecules)"
@@ -231,7 +231,7 @@ class Protocol:
         ``"config"``); empty for the defaults.
     mm_unused : str or None
         The file name of a measured spectrum that was given but not used, because the
-        protocol has no macromolecules (TE rule, phantom, or ``macromolecules=False``).
+        protocol has no macromolecules (phantom, or ``macromolecules=False``).
     """
 
     sequence: str
@@ -476,7 +476,7 @@ def resolve_protocol(
     metabolites : sequence of str, optional
         Members (default: ``[fit] members`` of ``config`` when not empty, else all).
     macromolecules : bool, optional
-        Add the macromolecule components (default: the rule, TE < :data:`SHORT_TE_S`).
+        Add the macromolecule components (default: the rule, :data:`MACROMOLECULE_RULE`).
     phantom : bool
         The scan is of a phantom: no macromolecules unless ``macromolecules`` says so, and
         :attr:`Protocol.phantom` set (one expected width for every metabolite in the fit).
@@ -555,8 +555,7 @@ def resolve_protocol(
     if macromolecules is None and phantom:
         macromolecules, mm_source = False, PHANTOM_RULE
     elif macromolecules is None:
-        macromolecules = te is not None and te < SHORT_TE_S
-        mm_source = MACROMOLECULE_RULE
+        macromolecules, mm_source = True, MACROMOLECULE_RULE
     else:
         mm_source = "chosen"
     mm = _resolve_mm({"option": mm_option, "manifest": mm_manifest, "config": mm_config},

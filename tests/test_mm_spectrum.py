@@ -164,10 +164,15 @@ def test_mm_spectrum_precedence_option_manifest_config(tmp_path):
     p = resolve_protocol(scan, option={"mm_spectrum": "none", "mm_keep_lipids": False},
                          config=cfg)
     assert p.mm_model() == {"model": "parametrised"}
-    # a protocol without macromolecules (TE 144 by the rule) uses no MM spectrum at all
-    long_te = resolve_protocol(plain_scan(te_s=0.144), config=cfg)
-    assert long_te.mm_model() == {"model": "none", "unused_file": "c.nii.gz"}
-    assert long_te.key() == resolve_protocol(plain_scan(te_s=0.144)).key()
+    # a protocol without macromolecules (chosen, or a phantom) uses no MM spectrum at all
+    none = resolve_protocol(scan, config=cfg, macromolecules=False)
+    assert none.mm_model() == {"model": "none", "unused_file": "c.nii.gz"}
+    assert none.key() == resolve_protocol(scan, macromolecules=False).key()
+    phantom = resolve_protocol(scan, config=cfg, phantom=True)
+    assert phantom.mm_model() == {"model": "none", "unused_file": "c.nii.gz"}
+    # tissue at TE 144 has macromolecules too (the rule): a TE 30 spectrum is refused
+    with pytest.raises(InvalidInputError, match="TE 30 ms, the scan at TE 144 ms"):
+        resolve_protocol(plain_scan(te_s=0.144), config=cfg)
 
 
 def test_protocol_key_follows_the_file_content_not_its_name(tmp_path):

@@ -25,7 +25,6 @@ from specproc.protocol import (
     MACROMOLECULE_RULE,
     PHANTOM_RULE,
     PHANTOM_WIDTH_RULE,
-    SHORT_TE_S,
     phantom_fit_config,
     resolve_protocol,
 )
@@ -77,9 +76,10 @@ def test_only_the_timing_of_the_sequence_is_used():
 
 
 def test_macromolecule_rule_and_members_from_the_config():
-    assert resolve_protocol(_scan(te_s=SHORT_TE_S - 1e-3)).macromolecules is True
-    long_te = resolve_protocol(_scan(te_s=SHORT_TE_S))
-    assert long_te.macromolecules is False and long_te.macromolecule_source == MACROMOLECULE_RULE
+    # tissue: the components at short and long TE alike (the rule of 2026-12-03)
+    for te_s in (0.030, 0.144, 0.288):
+        p = resolve_protocol(_scan(te_s=te_s))
+        assert p.macromolecules is True and p.macromolecule_source == MACROMOLECULE_RULE
     phantom = resolve_protocol(_scan(), phantom=True)
     assert phantom.macromolecules is False and phantom.macromolecule_source == PHANTOM_RULE
     assert resolve_protocol(_scan(), phantom=True, macromolecules=True).macromolecules is True

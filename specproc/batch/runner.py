@@ -558,7 +558,7 @@ def run_batch(
         given, else every metabolite definition).
     macromolecules : bool, optional
         Add the macromolecule components to the basis (default: the rule of
-        :mod:`specproc.protocol`, TE below :data:`specproc.protocol.SHORT_TE_S`).
+        :mod:`specproc.protocol`: tissue at every TE, not a phantom).
     retry_failed : bool
         Process again scans recorded as failed with unchanged inputs.
     progress : bool

@@ -35,7 +35,7 @@ __all__ = ["COMMANDS"]
                    "configuration, else all metabolite definitions).")
 @click.option("--macromolecules/--no-macromolecules", default=None,
               help="Add (or leave out) the macromolecule components of the basis (default: "
-                   "added when TE < 60 ms, as for a single scan).")
+                   "added for tissue at every TE, not for a phantom, as for a single scan).")
 @click.option("--retry-failed", is_flag=True,
               help="Process again the scans that failed in an earlier run with the same inputs.")
 @click.option("--strict", is_flag=True, help="Exit with status 1 when any scan failed.")

@@ -29,7 +29,6 @@ import click
 
 from specproc.cli.tissue import map_file_options, map_files_from_options
 from specproc.errors import InvalidInputError
-from specproc.protocol import SHORT_TE_S
 
 __all__ = ["COMMANDS", "fit_command", "tissue_option"]
 
@@ -100,7 +99,7 @@ def tissue_option(gm: float | None, wm: float | None, csf: float | None
                    "else TE/8, TE/4, TE/4, TE/4, TE/8).")
 @click.option("--macromolecules/--no-macromolecules", default=None,
               help="Add macromolecule/lipid members to a simulated basis "
-                   f"(default: when TE < {SHORT_TE_S * 1e3:g} ms).")
+                   "(default: for tissue at every TE, not for a phantom).")
 @click.option("--phantom", is_flag=True, default=False,
               help="The scan is of a phantom: no macromolecules, and one expected line width "
                    "for every metabolite (the relaxation table is of tissue).")
