@@ -46,3 +46,24 @@ def batch_on_corpus(corpus: Path, timeout_s: float = 600) -> tuple[list[dict[str
     truths = json.loads((corpus / "truth.json").read_text())["scans"]
     est, status = score.read_cohort(run)
     return truths, {"est": est, "status": status, "score": score}
+
+
+def run_scans(tmp_path_factory: Any, name: str, scan_ids: tuple[str, ...],
+              timeout_s: float = 900) -> tuple[list[dict[str, Any]], dict]:
+    """Generate ``scan_ids`` of the corpus in a fresh folder and run :func:`batch_on_corpus`;
+    every scan must be there and none may fail."""
+    corpus = tmp_path_factory.mktemp(name)
+    validation_module("generate").generate(corpus, scan_ids=scan_ids)
+    truths, run = batch_on_corpus(corpus, timeout_s=timeout_s)
+    assert sorted(t["scan_id"] for t in truths) == sorted(scan_ids)
+    assert all(s != "failed" for s in run["status"].values())
+    return truths, run
+
+
+def ratio_errors(truths_run: tuple[list[dict[str, Any]], dict], measure: str) -> dict[str, Any]:
+    """The scorer's errors of the ratio to tCr of ``measure`` (``rel_pct``, ``covered`` ...);
+    every scan must have an estimate."""
+    truths, run = truths_run
+    errors = run["score"].errors(truths, run["est"], measure, measure, "ratio")
+    assert errors["missing"] == 0, f"{measure}: {errors['missing']} scans without an estimate"
+    return errors

@@ -17,34 +17,23 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from _validation import batch_on_corpus, validation_module
+from _validation import ratio_errors, run_scans
 
 SCANS = tuple(f"3t-te144-{i:03d}" for i in range(1, 9))
 
 
 @pytest.fixture(scope="module")
 def run_te144(tmp_path_factory: pytest.TempPathFactory) -> tuple[list[dict], dict]:
-    corpus = tmp_path_factory.mktemp("validation-te144")
-    validation_module("generate").generate(corpus, scan_ids=SCANS)
-    truths, run = batch_on_corpus(corpus, timeout_s=900)
-    assert sorted(t["scan_id"] for t in truths) == list(SCANS)
+    truths, run = run_scans(tmp_path_factory, "validation-te144", SCANS)
     assert all(t["spec"]["te_s"] == pytest.approx(0.144) for t in truths)
-    assert all(s != "failed" for s in run["status"].values())
     return truths, run
-
-
-def _errors(run_te144, measure: str) -> dict:
-    truths, run = run_te144
-    errors = run["score"].errors(truths, run["est"], measure, measure, "ratio")
-    assert errors["missing"] == 0, f"{measure}: {errors['missing']} scans without an estimate"
-    return errors
 
 
 @pytest.mark.slow
 def test_te144_myo_inositol_keeps_the_macromolecule_residual_out(run_te144) -> None:
     # limits: between the errors before (signed mI -5.7 %, 6 of 8 Glx covered) and after
-    assert abs(float(np.median(_errors(run_te144, "mI")["rel_pct"]))) < 4.0
-    assert float(np.mean(_errors(run_te144, "Glx")["covered"])) >= 0.85
+    assert abs(float(np.median(ratio_errors(run_te144, "mI")["rel_pct"]))) < 4.0
+    assert float(np.mean(ratio_errors(run_te144, "Glx")["covered"])) >= 0.85
     # the targets of issue 10 for TE 144 (median |error| <= 6 %), met before and after
     for measure in ("tNAA", "tCho"):
-        assert float(np.median(np.abs(_errors(run_te144, measure)["rel_pct"]))) < 3.0, measure
+        assert float(np.median(np.abs(ratio_errors(run_te144, measure)["rel_pct"]))) < 3.0, measure
