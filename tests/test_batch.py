@@ -57,7 +57,8 @@ def cache_env(tmp_path_factory: pytest.TempPathFactory) -> dict[str, str]:
 
 @pytest.fixture(scope="session")
 def small_basis(cache_env: dict[str, str]):
-    # TE 80 ms PRESS at 3 T: no macromolecules by the short-TE rule of specproc.protocol
+    # TE 80 ms PRESS at 3 T; the data are made without macromolecules (simulate_basis default),
+    # the batch fits them with the components of every tissue scan (specproc.protocol)
     return simulate_basis(sequence="press", field_t=3.0, te_s=0.08, dwell_s=5e-4,
                           n_points=1024, metabolites=list(MEMBERS))
 

@@ -122,6 +122,6 @@ def test_phantom_of_the_manifest_is_fitted_without_macromolecules(demo_cohort) -
     kinds = {r["kind"] for r in rows}
     assert "macromolecule" not in kinds and "metabolite" in kinds
     volunteer = _read(demo_cohort.scan_dir("sub-01_ses-01_svs") / "results.tsv")
-    assert "macromolecule" in {r["kind"] for r in volunteer}  # TE 30 ms: the short-TE rule
+    assert "macromolecule" in {r["kind"] for r in volunteer}  # tissue: protocol rule
     page = (demo_cohort.out / "cohort.html").read_text("utf-8")
     assert "phantom scan(s) (manifest kind" in page and "are listed below but not" in page

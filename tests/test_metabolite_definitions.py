@@ -22,6 +22,7 @@ from pathlib import Path
 import pytest
 
 from specproc._paths import basis_dir
+from specproc.constants import larmor_mhz
 from specproc.errors import InvalidInputError
 from specproc.provenance import STATUSES
 from specproc.spins.systems import (
@@ -517,8 +518,6 @@ def test_missing_macromolecule_file(tmp_path: Path) -> None:
 def test_macromolecule_width_field_keeps_hz_above_it(tmp_path: Path) -> None:
     # A user file may set width_field_t: above that field each line keeps the width in Hz it
     # has there, at and below it the width in ppm (f0 from CODATA γ through larmor_mhz).
-    from specproc.constants import larmor_mhz
-
     path = tmp_path / "macromolecules.toml"
     path.write_text(
         'width_field_t = 3.0\nwidth_field_provenance = { status = "common practice", at = "z" }\n'
